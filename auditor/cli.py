@@ -1,0 +1,95 @@
+"""The ``auditor`` command line: a thin layer over the library.
+
+Exit codes (contract): 0 conditions hold, 1 a required condition is violated,
+2 bad input or usage (one line on stderr, no output file), 3 conditions hold
+but the crew worldline exceeds its tidal limit.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+
+from . import __version__
+from .errors import AuditorError
+
+__all__ = ["main", "build_parser"]
+
+EXIT_OK, EXIT_VIOLATED, EXIT_INPUT, EXIT_CREW = 0, 1, 2, 3
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # one line, exit 2, no usage dump
+        self.exit(EXIT_INPUT, f"auditor: error: {message} (see 'auditor {self._sub} --help')\n"
+                  if getattr(self, "_sub", "") else f"auditor: error: {message}\n")
+
+
+def _common(p: argparse.ArgumentParser):
+    p.add_argument("file", help="metric file (TOML)")
+    p.add_argument("--set", action="append", default=[], metavar="NAME=VALUE",
+                   help="override a parameter for this run (repeatable)")
+    p.add_argument("--points", type=int, default=None, metavar="N",
+                   help="samples per sampled axis (overrides region.points)")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="auditor", description="Audit a proposed spacetime metric: exact "
+                     "curvature, energy conditions for all observers, exotic matter and "
+                     "crew tidal loads.")
+    parser.add_argument("--version", action="version", version=f"auditor {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    p = sub.add_parser("probe", help="everything at one event")
+    p._sub = "probe"
+    _common(p)
+    p.add_argument("--at", required=True, metavar="t=..,x=..",
+                   help="the event, every coordinate as NAME=VALUE (expressions allowed)")
+    p.add_argument("--json", metavar="PATH|-", help="write JSON to PATH, or '-' for stdout")
+    p.set_defaults(func=_cmd_probe)
+    return parser
+
+
+def _load(args):
+    from .metric import load_metric, parse_overrides
+    if args.points is not None and args.points < 2:
+        from .errors import UsageError
+        raise UsageError(f"--points must be at least 2, got {args.points}")
+    return load_metric(args.file, overrides=parse_overrides(args.set), points=args.points)
+
+
+def _cmd_probe(args) -> int:
+    from .outputs import write_json
+    from .probe import parse_event, probe
+    from .textout import format_probe
+    metric = _load(args)
+    event = parse_event(metric, args.at)
+    result = probe(metric, event)
+    if args.json:
+        write_json(result.to_json(), args.json)
+    if args.json != "-":
+        print(format_probe(result))
+    return EXIT_OK
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except AuditorError as exc:
+        msg = " ".join(str(exc).split())
+        sys.stderr.write(f"auditor: error: {msg}\n")
+        return exc.exit_code
+    except KeyboardInterrupt:
+        sys.stderr.write("auditor: interrupted; no partial output was written\n")
+        return 130
+    except BrokenPipeError:
+        return 0
+    except Exception as exc:  # a bug: still one line, unless debugging
+        if os.environ.get("AUDITOR_DEBUG"):
+            raise
+        sys.stderr.write(f"auditor: internal error: {type(exc).__name__}: {exc} "
+                         "(set AUDITOR_DEBUG=1 for a traceback)\n")
+        return 70

@@ -1,0 +1,174 @@
+"""Symbolic derivatives of g_ab compiled to vectorised numeric kernels.
+
+The metric is differentiated exactly, once: the 10 independent components
+g_ab (a <= b), their 40 first derivatives ∂_c g_ab and their 100 second
+derivatives ∂_c ∂_d g_ab (c <= d). Nothing is simplified. Common
+subexpressions of all 150 expressions are shared (``sympy.cse``) and printed
+as one NumPy function that fills a preallocated (150, N) array. Parameters are
+kernel arguments, so a parameter sweep compiles once.
+
+Safety: the expressions reaching the printer contain only the internal symbols
+``_c0.._c3`` and ``_p0..`` built by :mod:`auditor.metric.loader` and functions
+from the whitelist of :mod:`auditor.metric.expr`; no user text or user name
+reaches the generated source. :func:`_check_source` verifies this before the
+source is compiled.
+
+Layout of the raw output (see DEVELOPERS.md, "Array layout"): row
+``GIDX[a, b]`` holds g_ab, ``DIDX[c, a, b]`` holds ∂_c g_ab, ``D2IDX[c, d, a, b]``
+holds ∂_c ∂_d g_ab.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from itertools import combinations_with_replacement
+from typing import Callable, Sequence
+
+import numpy as np
+import sympy as sp
+from sympy.printing.numpy import NumPyPrinter
+
+__all__ = ["MetricKernel", "ScalarKernel", "compile_metric", "compile_scalars",
+           "GIDX", "DIDX", "D2IDX", "N_RAW", "smooth_rewrite"]
+
+_PAIRS = list(combinations_with_replacement(range(4), 2))      # 10 (a <= b)
+
+GIDX = np.zeros((4, 4), dtype=np.intp)
+for _k, (_a, _b) in enumerate(_PAIRS):
+    GIDX[_a, _b] = GIDX[_b, _a] = _k
+DIDX = np.zeros((4, 4, 4), dtype=np.intp)
+D2IDX = np.zeros((4, 4, 4, 4), dtype=np.intp)
+_row = 10
+for _c in range(4):
+    for _k, (_a, _b) in enumerate(_PAIRS):
+        DIDX[_c, _a, _b] = DIDX[_c, _b, _a] = _row + 10 * _c + _k
+_row = 50
+for _m, (_c, _d) in enumerate(_PAIRS):
+    for _k, (_a, _b) in enumerate(_PAIRS):
+        for (cc, dd) in {(_c, _d), (_d, _c)}:
+            for (aa, bb) in {(_a, _b), (_b, _a)}:
+                D2IDX[cc, dd, aa, bb] = _row + 10 * _m + _k
+N_RAW = 150
+
+
+def smooth_rewrite(expr: sp.Expr) -> sp.Expr:
+    """Rewrite reciprocal functions so that NumPy evaluates them without overflow.
+
+    SymPy prints sech, coth, ... through exponentials, which overflow to inf/inf
+    for large arguments; 1/cosh and 1/tanh do not.
+    """
+    return expr.replace(sp.sech, lambda a: 1 / sp.cosh(a)) \
+               .replace(sp.csch, lambda a: 1 / sp.sinh(a)) \
+               .replace(sp.coth, lambda a: 1 / sp.tanh(a)) \
+               .replace(sp.sec, lambda a: 1 / sp.cos(a)) \
+               .replace(sp.csc, lambda a: 1 / sp.sin(a)) \
+               .replace(sp.cot, lambda a: 1 / sp.tan(a))
+
+
+_ALLOWED_NAME = re.compile(r"^(_c[0-3]|_p\d+|_t\d+|out|numpy|x|p|kernel)$")
+_NUMPY_ATTRS = {"sqrt", "exp", "log", "sin", "cos", "tan", "arcsin", "arccos", "arctan",
+                "arctan2", "sinh", "cosh", "tanh", "arcsinh", "arccosh", "arctanh", "pi",
+                "errstate", "empty", "float64"}
+
+
+def _check_source(src: str) -> None:
+    """Refuse generated source that holds anything but our own names.
+
+    Every identifier must be an internal symbol, a CSE temporary, ``numpy``
+    or one of the whitelisted NumPy attributes. A guard against a future change
+    letting a user name through: it fails loudly instead of compiling.
+    """
+    for tok in re.findall(r"[A-Za-z_][A-Za-z_0-9]*(?:\.[A-Za-z_][A-Za-z_0-9]*)?", src):
+        if tok in ("def", "return", "with", "for", "in", "None", "range", "all", "ignore"):
+            continue
+        if tok.startswith("numpy."):
+            if tok[6:] not in _NUMPY_ATTRS:
+                raise RuntimeError(f"generated source uses numpy.{tok[6:]}")
+            continue
+        if re.fullmatch(r"\d*e", tok):  # exponent of a float literal like 1e-3
+            continue
+        if not _ALLOWED_NAME.match(tok):
+            raise RuntimeError(f"generated source holds an unexpected name {tok!r}")
+
+
+def _generate(exprs: Sequence[sp.Expr], coord_syms, param_syms) -> str:
+    allowed = set(coord_syms) | set(param_syms)
+    for e in exprs:
+        stray = e.free_symbols - allowed
+        if stray:
+            raise RuntimeError(f"unexpected symbols in kernel: {sorted(map(str, stray))}")
+    temps = sp.numbered_symbols("_t")
+    replacements, reduced = sp.cse(list(exprs), symbols=temps, optimizations="basic")
+    printer = NumPyPrinter({"fully_qualified_modules": True, "allow_unknown_functions": False,
+                            "inline": True})
+    lines = ["def kernel(x, p, out):"]
+    for i, s in enumerate(coord_syms):
+        lines.append(f"    {s.name} = x[{i}]")
+    for i, s in enumerate(param_syms):
+        lines.append(f"    {s.name} = p[{i}]")
+    lines.append("    with numpy.errstate(all='ignore'):")
+    for sym, val in replacements:
+        lines.append(f"        {sym.name} = {printer.doprint(val)}")
+    for k, val in enumerate(reduced):
+        lines.append(f"        out[{k}] = {printer.doprint(val)}")
+    lines.append("    return out")
+    src = "\n".join(lines) + "\n"
+    _check_source(src)
+    return src
+
+
+def _compile(src: str) -> Callable:
+    namespace: dict = {"numpy": np, "__builtins__": {}}
+    code = compile(src, "<auditor-kernel>", "exec")
+    exec(code, namespace)  # noqa: S102 - source built from internal symbols only, checked above
+    return namespace["kernel"]
+
+
+@dataclass(frozen=True)
+class ScalarKernel:
+    """Vectorised evaluation of a list of expressions in the internal symbols."""
+
+    source: str
+    n_out: int
+    _fn: Callable
+
+    def __call__(self, x: np.ndarray, params: Sequence[float]) -> np.ndarray:
+        """``x`` is (4, N) coordinates; returns (n_out, N) float64."""
+        x = np.asarray(x, dtype=np.float64)
+        out = np.empty((self.n_out, x.shape[1]), dtype=np.float64)
+        p = np.asarray(params, dtype=np.float64)
+        self._fn(x, p, out)
+        return out
+
+
+@dataclass(frozen=True)
+class MetricKernel(ScalarKernel):
+    """The raw kernel of one metric: g, ∂g and ∂∂g (150 rows)."""
+
+
+def compile_scalars(exprs: Sequence[sp.Expr], coord_syms, param_syms) -> ScalarKernel:
+    """Compile expressions (internal symbols only) to a vectorised kernel."""
+    exprs = [smooth_rewrite(e) for e in exprs]
+    src = _generate(exprs, coord_syms, param_syms)
+    return ScalarKernel(src, len(exprs), _compile(src))
+
+
+def metric_derivative_exprs(g: sp.MatrixBase, coord_syms) -> list[sp.Expr]:
+    """The 150 raw expressions: g_ab, ∂_c g_ab, ∂_c ∂_d g_ab (layout above)."""
+    g = g.applyfunc(smooth_rewrite)
+    comps = [g[a, b] for a, b in _PAIRS]
+    first = [[sp.diff(gab, coord_syms[c]) for gab in comps] for c in range(4)]
+    exprs = list(comps)
+    for c in range(4):
+        exprs.extend(first[c])
+    for c, d in _PAIRS:
+        exprs.extend(sp.diff(dg, coord_syms[d]) for dg in first[c])
+    return exprs
+
+
+def compile_metric(metric) -> MetricKernel:
+    """Differentiate ``metric.g`` and compile the raw kernel."""
+    exprs = metric_derivative_exprs(metric.g, metric.coord_symbols)
+    src = _generate(exprs, metric.coord_symbols, metric.param_symbols)
+    return MetricKernel(src, N_RAW, _compile(src))

@@ -1,0 +1,284 @@
+"""The safe arithmetic language of metric files and ``--at`` values.
+
+User text is parsed with :func:`ast.parse` (which builds a syntax tree and runs
+nothing) and the tree is walked against a whitelist; SymPy objects are built
+directly from the accepted nodes. User text never reaches ``eval``, ``exec``,
+``sympify``, ``parse_expr`` or ``lambdify``.
+
+Accepted: numbers, declared names, ``pi``, ``+ - * / **``, unary ``+``/``-``,
+parentheses and calls of the functions in :data:`FUNCTIONS`. Everything else
+is an :class:`~auditor.errors.ExpressionError` that names the offending text
+and its column.
+"""
+
+from __future__ import annotations
+
+import ast
+import difflib
+import math
+import re
+from typing import Mapping
+
+import sympy as sp
+
+from ..errors import ExpressionError
+
+__all__ = ["FUNCTIONS", "CONSTANTS", "MAX_LENGTH", "MAX_DEPTH", "MAX_EXPONENT",
+           "parse_expression", "is_valid_name", "suggest"]
+
+#: Smooth functions offered by the language: name -> (SymPy function, arity).
+#: Functions with kinks or jumps (abs, sign, min, max, floor, Heaviside) are not
+#: offered: curvature needs a metric twice differentiable where it is audited.
+FUNCTIONS: dict[str, tuple[object, int]] = {
+    "sqrt": (sp.sqrt, 1), "exp": (sp.exp, 1), "log": (sp.log, 1),
+    "sin": (sp.sin, 1), "cos": (sp.cos, 1), "tan": (sp.tan, 1),
+    "cot": (sp.cot, 1), "sec": (sp.sec, 1), "csc": (sp.csc, 1),
+    "asin": (sp.asin, 1), "acos": (sp.acos, 1), "atan": (sp.atan, 1),
+    "atan2": (sp.atan2, 2),
+    "sinh": (sp.sinh, 1), "cosh": (sp.cosh, 1), "tanh": (sp.tanh, 1),
+    "coth": (sp.coth, 1), "sech": (sp.sech, 1), "csch": (sp.csch, 1),
+    "asinh": (sp.asinh, 1), "acosh": (sp.acosh, 1), "atanh": (sp.atanh, 1),
+}
+
+#: Named constants of the language.
+CONSTANTS: dict[str, sp.Expr] = {"pi": sp.pi}
+
+#: Longest accepted expression, in characters (a metric is a page, not a book).
+MAX_LENGTH = 20_000
+#: Deepest accepted nesting of operations (keeps SymPy's recursion bounded).
+MAX_DEPTH = 60
+#: Largest accepted |exponent| when the exponent is a plain number: 10**400
+#: already overflows a double, and exact SymPy powers of huge exponents would
+#: exhaust time and memory.
+MAX_EXPONENT = 256
+
+_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+
+_BINOPS = {ast.Add: "+", ast.Sub: "-", ast.Mult: "*", ast.Div: "/", ast.Pow: "**"}
+_REFUSED_OPS = {
+    ast.BitXor: ("'^' is not a power here", "use '**' for powers"),
+    ast.FloorDiv: ("'//' (floor division) is not offered", "use '/'"),
+    ast.Mod: ("'%' (remainder) is not offered", None),
+    ast.MatMult: ("'@' is not offered", None),
+    ast.BitAnd: ("'&' is not offered", None),
+    ast.BitOr: ("'|' is not offered", None),
+    ast.LShift: ("'<<' is not offered", None),
+    ast.RShift: ("'>>' is not offered", None),
+}
+
+
+def is_valid_name(name: str) -> bool:
+    """An ASCII identifier that is not a dunder name."""
+    return bool(_NAME.match(name)) and not (name.startswith("__") or name.endswith("__"))
+
+
+def suggest(word: str, candidates) -> str | None:
+    """The closest candidate to ``word``, or None."""
+    found = difflib.get_close_matches(word, list(candidates), n=1, cutoff=0.6)
+    return found[0] if found else None
+
+
+def parse_expression(text: str, names: Mapping[str, sp.Expr], *,
+                     path: str | None = None, key: str | None = None) -> sp.Expr:
+    """Parse ``text`` into a SymPy expression.
+
+    ``names`` maps every declared name (coordinates, parameters, definitions) to
+    the SymPy object it stands for. ``path`` and ``key`` only label errors.
+    """
+    def fail(message, column=None, hint=None):
+        raise ExpressionError(message, text=text, column=column, path=path, key=key, hint=hint)
+
+    if not isinstance(text, str):
+        raise ExpressionError(f"expected an expression string, got {type(text).__name__} {text!r}",
+                              path=path, key=key)
+    if not text.strip():
+        fail("empty expression")
+    if len(text) > MAX_LENGTH:
+        fail(f"expression is {len(text)} characters long, more than the {MAX_LENGTH} accepted")
+    if "\x00" in text:
+        fail("expression contains a NUL character", text.index("\x00"))
+    for i, ch in enumerate(text):
+        if ord(ch) > 127:
+            fail(f"non-ASCII character {ch!r}", i, "names and operators are ASCII only")
+    # A cheap bracket-depth check before the parser, whose own recursion is
+    # limited: deep nesting is refused with our message, not a RecursionError.
+    depth = 0
+    for i, ch in enumerate(text):
+        if ch in "([{":
+            depth += 1
+            if depth > MAX_DEPTH:
+                fail(f"brackets nested deeper than {MAX_DEPTH}", i)
+        elif ch in ")]}":
+            depth -= 1
+    try:
+        tree = ast.parse(text.strip(), mode="eval")
+    except SyntaxError as exc:
+        col = (exc.offset - 1) if exc.offset else None
+        lead = len(text) - len(text.lstrip())
+        hint = None
+        if "^" in text:
+            hint = "use '**' for powers"
+        fail(f"syntax error ({exc.msg})", None if col is None else col + lead, hint)
+    except (RecursionError, MemoryError, ValueError) as exc:
+        fail(f"expression cannot be parsed ({type(exc).__name__})")
+    lead = len(text) - len(text.lstrip())
+    expr = _Builder(text, names, fail, lead).build(tree.body, 0)
+    if expr.has(sp.I, sp.zoo, sp.oo, sp.nan) or expr.has(-sp.oo):
+        fail("expression has a constant part that is not a finite real number",
+             None, "check square roots and logarithms of negative or zero constants")
+    return expr
+
+
+class _Builder:
+    def __init__(self, text, names, fail, lead):
+        self.text = text
+        self.names = names
+        self.fail = fail
+        self.lead = lead
+
+    def col(self, node):
+        off = getattr(node, "col_offset", None)
+        return None if off is None else off + self.lead
+
+    def build(self, node, depth):
+        if depth > MAX_DEPTH:
+            self.fail(f"expression nested deeper than {MAX_DEPTH}", self.col(node))
+        method = getattr(self, "_" + type(node).__name__, None)
+        if method is None:
+            self.fail(f"{_describe(node)} is not allowed", self.col(node),
+                      "only numbers, names, + - * / **, parentheses and the listed functions are")
+        return method(node, depth)
+
+    # -- leaves -----------------------------------------------------------------
+    def _Constant(self, node, depth):
+        value = node.value
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            what = "a string" if isinstance(value, str) else repr(value)
+            self.fail(f"{what} is not a number", self.col(node))
+        if isinstance(value, float) and not math.isfinite(value):
+            self.fail("a non-finite number is not allowed", self.col(node))
+        if isinstance(value, int):
+            if abs(value) > 10**30:
+                self.fail("integer literal too large (more than 30 digits)", self.col(node))
+            return sp.Integer(value)
+        # Exact rational from the literal's own digits: '0.1' is 1/10, not
+        # the nearest double.
+        src = ast.get_source_segment(self.text.strip(), node)
+        try:
+            return sp.Rational(src) if src else sp.Rational(repr(value))
+        except (TypeError, ValueError):
+            return sp.Float(value)
+
+    def _Name(self, node, depth):
+        name = node.id
+        if name.startswith("__") or name.endswith("__"):
+            self.fail(f"dunder name '{name}' is not allowed", self.col(node))
+        if name in self.names:
+            return self.names[name]
+        if name in CONSTANTS:
+            return CONSTANTS[name]
+        lname = name.lower()
+        if lname in ("nan", "inf", "infinity"):
+            self.fail(f"'{name}' is not a finite number", self.col(node))
+        if name in FUNCTIONS:
+            self.fail(f"function '{name}' used without an argument", self.col(node),
+                      f"write {name}(...)")
+        close = suggest(name, list(self.names) + list(CONSTANTS))
+        self.fail(f"unknown name '{name}'", self.col(node),
+                  f"did you mean '{close}'?" if close else "declare it under [parameters] or [define]")
+
+    # -- operators --------------------------------------------------------------
+    def _BinOp(self, node, depth):
+        op = type(node.op)
+        if op in _REFUSED_OPS:
+            msg, hint = _REFUSED_OPS[op]
+            self.fail(msg, self.col(node.left) if op is not ast.BitXor else _op_col(self, node), hint)
+        if op not in _BINOPS:
+            self.fail(f"operator {op.__name__} is not allowed", self.col(node))
+        left = self.build(node.left, depth + 1)
+        right = self.build(node.right, depth + 1)
+        if op is ast.Add:
+            return left + right
+        if op is ast.Sub:
+            return left - right
+        if op is ast.Mult:
+            return left * right
+        if op is ast.Div:
+            if right == 0:
+                self.fail("division by zero", self.col(node.right))
+            return left / right
+        # Power: bound plain-number exponents before SymPy evaluates anything.
+        if right.is_Number:
+            if left.is_Number and left != 0 and \
+                    abs(float(sp.log(abs(left), 10)) * float(right)) > 300:
+                self.fail("number too large or too small (beyond 1e300)", self.col(node))
+            if abs(right) > MAX_EXPONENT:
+                self.fail(f"exponent {right} is too large (at most {MAX_EXPONENT} in size)",
+                          self.col(node.right))
+            if left == 0 and right.is_negative:
+                self.fail("zero to a negative power", self.col(node))
+        elif left.is_Number and not right.free_symbols:
+            self.fail("exponent is not a plain number", self.col(node.right))
+        return left ** right
+
+    def _UnaryOp(self, node, depth):
+        if isinstance(node.op, ast.USub):
+            return -self.build(node.operand, depth + 1)
+        if isinstance(node.op, ast.UAdd):
+            return self.build(node.operand, depth + 1)
+        self.fail(f"{_describe(node)} is not allowed", self.col(node))
+
+    def _Call(self, node, depth):
+        if not isinstance(node.func, ast.Name):
+            self.fail(f"{_describe(node.func)} cannot be called", self.col(node),
+                      "only the listed functions can be called, by name")
+        fname = node.func.id
+        if fname.startswith("__") or fname.endswith("__"):
+            self.fail(f"dunder name '{fname}' is not allowed", self.col(node))
+        if fname not in FUNCTIONS:
+            close = suggest(fname, FUNCTIONS)
+            hint = f"did you mean '{close}'?" if close else \
+                "available: " + " ".join(sorted(FUNCTIONS))
+            if fname in self.names or fname in CONSTANTS:
+                self.fail(f"'{fname}' is not a function", self.col(node))
+            self.fail(f"unknown function '{fname}'", self.col(node), hint)
+        if node.keywords:
+            self.fail(f"keyword arguments are not allowed in {fname}()", self.col(node))
+        func, arity = FUNCTIONS[fname]
+        if len(node.args) != arity or any(isinstance(a, ast.Starred) for a in node.args):
+            self.fail(f"{fname}() takes {arity} argument{'s' if arity > 1 else ''}, "
+                      f"got {len(node.args)}", self.col(node))
+        args = [self.build(a, depth + 1) for a in node.args]
+        return func(*args)
+
+
+def _op_col(builder, node):
+    # Column of a binary operator: the first operator character after the left operand.
+    end = getattr(node.left, "end_col_offset", None)
+    if end is None:
+        return builder.col(node)
+    stripped = builder.text.strip()
+    for i in range(end, len(stripped)):
+        if stripped[i] not in " \t)":
+            return i + builder.lead
+    return builder.col(node)
+
+
+def _describe(node) -> str:
+    kinds = {
+        ast.Attribute: "attribute access", ast.Subscript: "subscripting",
+        ast.Lambda: "a lambda", ast.IfExp: "a conditional expression",
+        ast.ListComp: "a comprehension", ast.SetComp: "a comprehension",
+        ast.DictComp: "a comprehension", ast.GeneratorExp: "a generator expression",
+        ast.Compare: "a comparison", ast.BoolOp: "'and'/'or'", ast.List: "a list",
+        ast.Tuple: "a tuple", ast.Dict: "a dict", ast.Set: "a set",
+        ast.JoinedStr: "an f-string", ast.NamedExpr: "an assignment expression",
+        ast.Await: "await", ast.Yield: "yield", ast.Starred: "unpacking",
+        ast.Slice: "a slice",
+    }
+    for k, v in kinds.items():
+        if isinstance(node, k):
+            return v
+    if isinstance(node, ast.UnaryOp):
+        return {ast.Not: "'not'", ast.Invert: "'~'"}.get(type(node.op), "this operator")
+    return type(node).__name__

@@ -1,0 +1,146 @@
+"""Everything at one event: ``auditor probe``.
+
+:func:`probe` evaluates the exact curvature at one event and returns a
+:class:`ProbeResult`; :meth:`ProbeResult.to_json` gives the contract's keys.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Mapping
+
+import numpy as np
+import sympy as sp
+
+from . import units
+from .conditions.stress import component_tolerance, frame_stress
+from .errors import ExpressionError, PointError, UsageError
+from .frames import auditing_frame
+from .geometry import Geometry
+from .geometry.points import REASONS
+from .metric.expr import parse_expression, suggest
+
+__all__ = ["ProbeResult", "probe", "parse_event", "split_assignments"]
+
+_REASON_TEXT = {
+    "singular": "the metric or its derivatives are not finite there (no limit converges)",
+    "degenerate": "the metric is degenerate there (det g = 0)",
+    "not_lorentzian": "the metric is not Lorentzian there (signature is not -,+,+,+)",
+    "non_positive_lapse": "the lapse is not positive there",
+    "user_exclusion": "region.exclude removes it",
+}
+
+
+@dataclass(frozen=True)
+class ProbeResult:
+    """Exact geometry and matter at one event (geometric units unless suffixed)."""
+
+    name: str
+    point: Mapping[str, float]
+    g: np.ndarray
+    einstein: np.ndarray
+    ricci_scalar: float
+    kretschmann: float
+    eulerian_energy_density: float        # NaN where the slice is not spacelike
+    eulerian_energy_density_J_m3: float
+    frame: str
+    stress_frame: np.ndarray              # T_âb̂ in the auditing frame
+    tolerance: float                      # round-off of the components of T
+    resolved_as_limit: bool
+    length_m: float
+    extras: dict = field(default_factory=dict)
+
+    def to_json(self) -> dict:
+        out = {
+            "name": self.name,
+            "point": dict(self.point),
+            "g": self.g,
+            "einstein": self.einstein,
+            "ricci_scalar": self.ricci_scalar,
+            "kretschmann": self.kretschmann,
+            "eulerian_energy_density": self.eulerian_energy_density,
+            "eulerian_energy_density_J_m3": self.eulerian_energy_density_J_m3,
+            "frame": self.frame,
+            "stress_energy_frame": self.stress_frame,
+            "stress_energy_tolerance": self.tolerance,
+            "resolved_as_limit": self.resolved_as_limit,
+            "length_m": self.length_m,
+        }
+        out.update(self.extras)
+        return out
+
+
+def split_assignments(text: str) -> list[str]:
+    """Split ``a=1,b=atan2(1,2)`` on the commas outside brackets."""
+    parts, depth, cur = [], 0, []
+    for ch in text:
+        if ch == "(":
+            depth += 1
+        elif ch == ")":
+            depth -= 1
+        if ch == "," and depth == 0:
+            parts.append("".join(cur))
+            cur = []
+        else:
+            cur.append(ch)
+    parts.append("".join(cur))
+    return [p.strip() for p in parts if p.strip()]
+
+
+def parse_event(metric, text: str, *, what: str = "--at") -> dict[str, float]:
+    """Parse ``t=0,x=1.2,...`` into coordinate values (all four required).
+
+    Values are expressions of the metric-file language; parameters may be used.
+    """
+    params = {p: sp.Float(v) for p, v in metric.parameters.items()}
+    out: dict[str, float] = {}
+    for item in split_assignments(text):
+        if "=" not in item:
+            raise UsageError(f"{what} expects NAME=VALUE pairs separated by commas, got '{item}'")
+        name, value = (s.strip() for s in item.split("=", 1))
+        if name not in metric.coordinates:
+            close = suggest(name, metric.coordinates)
+            raise UsageError(f"{what}: '{name}' is not a coordinate of {metric.name!r}"
+                             + (f"; did you mean '{close}'?" if close else
+                                f"; coordinates: {', '.join(metric.coordinates)}"))
+        if name in out:
+            raise UsageError(f"{what}: coordinate '{name}' given twice")
+        try:
+            expr = parse_expression(value, params, key=what)
+            val = float(expr)
+        except ExpressionError as exc:
+            raise UsageError(f"{what} {name}: {exc.reason}"
+                             + (f" ({exc.hint})" if exc.hint else "") + f" in '{value}'") from exc
+        except (TypeError, ValueError) as exc:
+            raise UsageError(f"{what} {name}: '{value}' is not a number") from exc
+        if not np.isfinite(val):
+            raise UsageError(f"{what} {name}: '{value}' is not finite")
+        out[name] = val
+    missing = [c for c in metric.coordinates if c not in out]
+    if missing:
+        raise UsageError(f"{what}: give every coordinate; missing {', '.join(missing)}")
+    return {c: out[c] for c in metric.coordinates}
+
+
+def probe(metric, at: Mapping[str, float], geometry: Geometry | None = None) -> ProbeResult:
+    """Exact curvature, Einstein tensor and matter at the event ``at``."""
+    geometry = geometry or Geometry(metric)
+    x = np.array([[float(at[c]) for c in metric.coordinates]])
+    batch = geometry.evaluate(x, use_exclude=False)
+    if batch.reason[0] != 0:
+        reason = REASONS[batch.reason[0] - 1]
+        where = ", ".join(f"{c}={at[c]:g}" for c in metric.coordinates)
+        raise PointError(f"event ({where}) cannot be audited: {_REASON_TEXT[reason]}")
+    curv = batch.curvature
+    E, eulerian_ok = auditing_frame(curv.g, curv.ginv)
+    T = frame_stress(curv.einstein, E)
+    tol = component_tolerance(curv.scale, E)
+    rho = float(T[0, 0, 0]) if eulerian_ok[0] else float("nan")
+    return ProbeResult(
+        name=metric.name, point=dict(at), g=curv.g[0], einstein=curv.einstein[0],
+        ricci_scalar=float(curv.ricci_scalar[0]), kretschmann=float(curv.kretschmann[0]),
+        eulerian_energy_density=rho,
+        eulerian_energy_density_J_m3=float(units.energy_density_J_m3(rho, metric.length_m)),
+        frame="eulerian" if eulerian_ok[0] else "principal",
+        stress_frame=T[0], tolerance=float(tol[0]),
+        resolved_as_limit=bool(batch.limit[0]), length_m=metric.length_m)
