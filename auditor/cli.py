@@ -48,6 +48,15 @@ def build_parser() -> argparse.ArgumentParser:
                    help="the event, every coordinate as NAME=VALUE (expressions allowed)")
     p.add_argument("--json", metavar="PATH|-", help="write JSON to PATH, or '-' for stdout")
     p.set_defaults(func=_cmd_probe)
+
+    p = sub.add_parser("check", help="audit the file's region; terminal summary")
+    p._sub = "check"
+    _common(p)
+    p.add_argument("--json", metavar="PATH|-", help="write JSON to PATH, or '-' for stdout")
+    p.add_argument("--require", default="NEC,WEC,SEC,DEC", metavar="NEC,WEC,...",
+                   help="conditions that decide the exit code (default all four)")
+    p.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    p.set_defaults(func=_cmd_check)
     return parser
 
 
@@ -71,6 +80,31 @@ def _cmd_probe(args) -> int:
     if args.json != "-":
         print(format_probe(result))
     return EXIT_OK
+
+
+def _require(text: str) -> tuple[str, ...]:
+    from .errors import UsageError
+    from .pointwise import CONDITIONS
+    items = tuple(s.strip().upper() for s in text.split(",") if s.strip())
+    bad = [s for s in items if s not in CONDITIONS]
+    if bad or not items:
+        raise UsageError(f"--require takes a comma-separated subset of {','.join(CONDITIONS)}; "
+                         f"got '{text}'")
+    return items
+
+
+def _cmd_check(args) -> int:
+    from .audit import audit
+    from .outputs import write_json
+    from .textout import format_audit
+    require = _require(args.require)
+    metric = _load(args)
+    result = audit(metric, progress=False if args.quiet else None)
+    if args.json:
+        write_json(result.to_json(), args.json)
+    if args.json != "-":
+        print(format_audit(result, require))
+    return result.exit_code(require)
 
 
 def main(argv=None) -> int:

@@ -43,3 +43,83 @@ def format_probe(r) -> str:
     for key, text in r.extras.get("_text", []):
         lines.append(text)
     return "\n".join(lines)
+
+
+def _pt(p) -> str:
+    if not p:
+        return "n/a"
+    return "(" + ", ".join(f"{k}={fmt(v, 4)}" for k, v in p.items()) + ")"
+
+
+def format_audit(res, require=("NEC", "WEC", "SEC", "DEC")) -> str:
+    """Terminal summary of an audit: one verdict row per condition."""
+    m = res.metric
+    g = res.grid
+    axes = " x ".join(f"{n} [{fmt(v[0], 4)}, {fmt(v[-1], 4)}]"
+                      for n, v in zip(g.axis_names, g.axis_values))
+    fixed = ", ".join(f"{k} = {fmt(v, 6)}" for k, v in g.fixed.items())
+    shape = "x".join(str(s) for s in g.shape)
+    lines = [m.name,
+             f"file {m.path}  sha256 {m.sha256[:12]}...  length unit {fmt(m.length_m)} m",
+             f"region {axes}" + (f"; {fixed}" if fixed else "") + f"  ({shape} = {res.points} events)"]
+    if res.parameters:
+        lines.append("parameters " + ", ".join(f"{k} = {fmt(v)}" for k, v in res.parameters.items()))
+    excl = ", ".join(f"{v} {k.replace('_', ' ')}" for k, v in res.excluded_by_reason.items() if v)
+    lines.append(f"audited {res.audited_points} events; excluded {res.excluded_points}"
+                 + (f" ({excl})" if excl else "")
+                 + (f"; {res.resolved_as_limit} with derivatives resolved as limits"
+                    if res.resolved_as_limit else "")
+                 + (f"; {res.non_eulerian_points} outside the Eulerian frame"
+                    if res.non_eulerian_points else ""))
+    lines.append("")
+    head = f"{'':4}{'verdict':<11}{'violating':>10}{'volume':>11}{'min margin':>12}{'refined':>12}  worst event"
+    lines.append(head)
+    for c, s in res.conditions.items():
+        if s.holds:
+            verdict = "holds" if s.saturated_fraction < 1.0 else "saturated"
+        else:
+            verdict = "VIOLATED"
+        if c not in require:
+            verdict += "*"
+        vol = s.violating_volume
+        vol = fmt(sum(vol) if isinstance(vol, list) else vol, 3) if vol is not None else "-"
+        lines.append(f"{c:<4}{verdict:<11}{100 * s.violating_fraction:>9.2f}%{vol:>11}"
+                     f"{fmt(s.min_margin, 4):>12}{fmt(s.refined_min_margin, 4):>12}  "
+                     f"{_pt(s.refined_worst_point or s.worst_point)}")
+    if any(c not in require for c in res.conditions):
+        lines.append("* not required by --require")
+    lines.append("")
+    if res.energy is not None:
+        e = res.energy.to_json()
+        tot = e["eulerian_total"]
+        if isinstance(tot, list):
+            lines.append(f"Eulerian energy per time sample: {', '.join(fmt(v, 4) for v in tot)}")
+        else:
+            lines.append(f"Eulerian energy  total {fmt(tot, 4)} ({fmt(e['eulerian_total_J'], 3)} J, "
+                         f"{fmt(e['eulerian_total_kg'], 3)} kg); negative part "
+                         f"{fmt(e['eulerian_negative_total'], 4)} "
+                         f"({fmt(e['eulerian_negative_total_kg'], 3)} kg)")
+    types = ", ".join(f"{k} {v}" for k, v in res.he_type_counts.items() if v)
+    lines.append(f"Hawking-Ellis types: {types}")
+    t = res.tidal
+    if t.peak_accel_g is not None:
+        comfort = t.fraction_above.get("comfort")
+        lines.append(f"Tidal map ({t.frame} frame, {fmt(t.body_length_m)} m body): peak "
+                     f"{fmt(t.peak_accel_g, 3)} g at {_pt(t.peak_point)}; above the "
+                     f"{fmt(t.levels[0].value_g)} g criterion at {100 * (comfort or 0):.2f}% of events")
+    if res.crew is not None:
+        lines.extend(res.crew.summary_lines())
+    if t.peak_accel_g is not None or res.crew is not None:
+        from .crew.limits import CAUTION
+        lines.append(CAUTION)
+    lines.append("")
+    bad = res.violated(require)
+    code = res.exit_code(require)
+    if bad:
+        lines.append(f"Result: {', '.join(bad)} violated (exit {code})")
+    elif code == 3:
+        lines.append("Result: required conditions hold; the crew worldline exceeds its tidal limit (exit 3)")
+    else:
+        lines.append(f"Result: {', '.join(require)} hold at every audited event (exit 0)")
+    lines.append(f"({res.seconds:.1f} s)")
+    return "\n".join(lines)

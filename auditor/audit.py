@@ -1,0 +1,441 @@
+"""The region audit behind ``auditor check`` and ``auditor report``.
+
+:func:`audit` samples ``[region]`` in chunks, decides the four energy
+conditions for all observers at every auditable event (:mod:`auditor.pointwise`),
+and summarises: verdicts, fractions, proper volumes, minimum margins with a
+local refinement on the exact kernels, the volume-integral quantifier
+∫ min(margin, 0) dV (Visser, Kar & Dadhich 2003), connected violating regions
+(:func:`scipy.ndimage.label`), Eulerian energy budgets in geometric and SI
+units, the tidal map and a sampled-observer cross-check.
+
+Usable from a notebook::
+
+    from auditor import load_metric
+    from auditor.audit import audit
+    result = audit(load_metric("sample_metrics/tanh_wall_bubble.toml"))
+    result.conditions["WEC"].holds, result.energy.total_kg
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import ndimage, optimize
+
+from . import __version__, units
+from .conditions.sampled import sampled_margins
+from .crew.limits import CAUTION, tidal_levels
+from .crew.tidal import peak_accel_g
+from .errors import NoAuditablePointError, UsageError
+from .geometry import DEFAULT_CHUNK, REASONS, Geometry
+from .grid import Grid
+from .pointwise import CONDITIONS, analyse
+
+__all__ = ["audit", "AuditResult", "ConditionSummary", "ViolatingRegion", "EnergyBudget",
+           "TidalSummary", "MAX_REGIONS", "CROSS_CHECK_POINTS"]
+
+#: Regions listed per condition (largest violations first); the count is always given.
+MAX_REGIONS = 50
+#: Events on which the sampled-observer cross-check runs (all, on smaller grids).
+CROSS_CHECK_POINTS = 4096
+#: Largest grid accepted in one audit (events): beyond it memory for the maps
+#: of results exceeds a few GiB.
+MAX_GRID_POINTS = 30_000_000
+
+
+@dataclass(frozen=True)
+class ViolatingRegion:
+    volume: float | list | None
+    min_margin: float
+    eulerian_energy: float | list | None
+    worst_point: dict
+    points: int
+
+
+@dataclass(frozen=True)
+class ConditionSummary:
+    name: str
+    holds: bool
+    saturated_fraction: float
+    violating_fraction: float
+    violating_volume: float | list | None
+    min_margin: float
+    worst_point: dict
+    refined_min_margin: float | None
+    refined_worst_point: dict | None
+    volume_integral: float | list | None
+    regions: tuple
+    region_count: int
+    cross_check: dict
+
+    def to_json(self, spatial: bool) -> dict:
+        out = {
+            "holds": self.holds, "saturated_fraction": self.saturated_fraction,
+            "violating_fraction": self.violating_fraction,
+            "min_margin": self.min_margin, "worst_point": self.worst_point,
+            "refined_min_margin": self.refined_min_margin,
+            "refined_worst_point": self.refined_worst_point,
+            "region_count": self.region_count,
+            "regions": [],
+            "cross_check": self.cross_check,
+        }
+        if spatial:
+            out["violating_volume"] = self.violating_volume
+            out["volume_integral"] = self.volume_integral
+        for r in self.regions:
+            item = {"volume": r.volume, "min_margin": r.min_margin,
+                    "eulerian_energy": r.eulerian_energy, "worst_point": r.worst_point,
+                    "points": r.points}
+            out["regions"].append(item)
+        return out
+
+
+@dataclass(frozen=True)
+class EnergyBudget:
+    """∫ ρ_E dV over the audited points of the slice(s) (geometric, J, kg)."""
+
+    total: float | list
+    negative_total: float | list
+    length_m: float
+
+    def to_json(self) -> dict:
+        conv = lambda v, f: [float(f(x, self.length_m)) for x in v] if isinstance(v, list) \
+            else float(f(v, self.length_m))
+        return {
+            "eulerian_total": self.total, "eulerian_negative_total": self.negative_total,
+            "eulerian_total_J": conv(self.total, units.energy_J),
+            "eulerian_total_kg": conv(self.total, units.energy_kg),
+            "eulerian_negative_total_J": conv(self.negative_total, units.energy_J),
+            "eulerian_negative_total_kg": conv(self.negative_total, units.energy_kg),
+        }
+
+
+@dataclass(frozen=True)
+class TidalSummary:
+    frame: str
+    body_length_m: float
+    peak_accel_g: float | None
+    peak_point: dict | None
+    peak_eigenvalues: list | None
+    fraction_above: dict
+    levels: tuple
+    undefined_points: int
+
+    def to_json(self) -> dict:
+        return {
+            "frame": self.frame, "body_length_m": self.body_length_m,
+            "peak_accel_g": self.peak_accel_g, "peak_point": self.peak_point,
+            "peak_eigenvalues": self.peak_eigenvalues,
+            "fraction_above": dict(self.fraction_above),
+            "levels": [{"key": l.key, "label": l.label, "value_g": l.value_g,
+                        "load": l.load, "analogy": l.analogy, "source": l.source}
+                       for l in self.levels],
+            "undefined_points": self.undefined_points,
+            "caution": CAUTION,
+        }
+
+
+@dataclass
+class AuditResult:
+    """Everything an audit found. ``maps`` holds per-event arrays in grid shape."""
+
+    metric: object
+    grid: Grid
+    parameters: dict
+    points: int
+    audited_points: int
+    excluded_by_reason: dict
+    resolved_as_limit: int
+    non_eulerian_points: int
+    conditions: dict
+    energy: EnergyBudget | None
+    tidal: TidalSummary
+    he_type_counts: dict
+    maps: dict = field(repr=False, default_factory=dict)
+    crew: object | None = None
+    station: object | None = None
+    seconds: float = 0.0
+
+    @property
+    def excluded_points(self) -> int:
+        return self.points - self.audited_points
+
+    def violated(self, require=CONDITIONS) -> list[str]:
+        return [c for c in require if not self.conditions[c].holds]
+
+    def exit_code(self, require=CONDITIONS) -> int:
+        """0 holds, 1 a required condition violated, 3 crew over its tidal limit."""
+        if self.violated(require):
+            return 1
+        if self.crew is not None and self.crew.exceeds_limit:
+            return 3
+        return 0
+
+    def to_json(self) -> dict:
+        m = self.metric
+        out = {
+            "name": m.name, "tool_version": __version__, "input_sha256": m.sha256,
+            "length_m": m.length_m, "parameters": dict(self.parameters),
+            "coordinates": list(m.coordinates),
+            "grid": {"axes": {n: [float(v[0]), float(v[-1]), len(v)]
+                              for n, v in zip(self.grid.axis_names, self.grid.axis_values)},
+                     "fixed": dict(self.grid.fixed)},
+            "points": self.points, "audited_points": self.audited_points,
+            "excluded_points": self.excluded_points,
+            "excluded_by_reason": dict(self.excluded_by_reason),
+            "resolved_as_limit": self.resolved_as_limit,
+            "non_eulerian_points": self.non_eulerian_points,
+            "hawking_ellis_types": dict(self.he_type_counts),
+            "conditions": {c: s.to_json(self.grid.spatial_sampled)
+                           for c, s in self.conditions.items()},
+            "tidal": self.tidal.to_json(),
+        }
+        if self.energy is not None:
+            out["energy"] = self.energy.to_json()
+        if self.crew is not None:
+            out["crew"] = self.crew.to_json()
+        if self.station is not None:
+            out["station"] = self.station.to_json()
+        return out
+
+
+class _Progress:
+    def __init__(self, total: int, enabled: bool):
+        self.total, self.enabled, self.start = total, enabled, time.monotonic()
+        self.last = 0.0
+
+    def update(self, done: int):
+        if not self.enabled:
+            return
+        now = time.monotonic()
+        if now - self.last < 0.2 and done < self.total:
+            return
+        self.last = now
+        pct = 100.0 * done / self.total
+        sys.stderr.write(f"\rauditing {done}/{self.total} events ({pct:5.1f}%), "
+                         f"{now - self.start:6.1f} s")
+        if done >= self.total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+
+def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None = None,
+          chunk: int = DEFAULT_CHUNK, progress: bool | None = None,
+          refine: bool = True, crew: bool = True) -> AuditResult:
+    """Audit the metric's ``[region]`` (see module docstring)."""
+    t0 = time.monotonic()
+    if metric.region is None:
+        raise UsageError(f"{metric.path}: no [region] table; add one to say where to audit")
+    if parameters:
+        metric = metric.with_parameters(**parameters)
+    geometry = geometry or Geometry(metric)
+    grid = Grid.from_region(metric)
+    size = grid.size
+    if size > MAX_GRID_POINTS:
+        raise UsageError(f"the region has {size} events, more than the {MAX_GRID_POINTS} "
+                         "one audit accepts; lower region.points or --points")
+    if progress is None:
+        progress = sys.stderr.isatty() and size > 20_000
+    bar = _Progress(size, progress)
+    crew_cfg = metric.crew
+
+    nan = lambda: np.full(size, np.nan)
+    maps = {"reason": np.zeros(size, np.int8), "he_type": np.full(size, -1, np.int8),
+            "rho": nan(), "weight": np.zeros(size), "tidal_g": nan(),
+            "eulerian": np.zeros(size, bool), "limit": np.zeros(size, bool)}
+    for c in CONDITIONS:
+        maps["margin_" + c] = nan()
+        maps["tol_" + c] = nan()
+    tidal_eigs = np.full((size, 3), np.nan)
+
+    # Cross-check subset: every event of small grids, a seeded random subset of big ones.
+    rng = np.random.default_rng(20261201)
+    check_mask = np.ones(size, bool) if size <= CROSS_CHECK_POINTS else \
+        (rng.random(size) < CROSS_CHECK_POINTS / size)
+    cross = {c: {"exact": [], "sampled": [], "tol": []} for c in CONDITIONS}
+
+    for start in range(0, size, chunk):
+        stop = min(start + chunk, size)
+        x = grid.events(start, stop)
+        batch = geometry.evaluate(x, metric.parameters)
+        maps["reason"][start:stop] = batch.reason
+        maps["limit"][start:stop] = batch.limit
+        fields = analyse(batch, crew_cfg.frame)
+        if fields is not None:
+            idx = start + np.flatnonzero(batch.ok)
+            for c in CONDITIONS:
+                maps["margin_" + c][idx] = fields.margins[c]
+                maps["tol_" + c][idx] = fields.tolerances[c]
+            maps["he_type"][idx] = fields.he_type
+            maps["rho"][idx] = fields.rho
+            maps["eulerian"][idx] = fields.frame_eulerian
+            w = grid.coordinate_weights(start, stop)[batch.ok] * fields.sqrt_gamma
+            maps["weight"][idx] = np.where(np.isfinite(w), w, 0.0)
+            tidal_eigs[idx] = fields.tidal_eigenvalues
+            maps["tidal_g"][idx] = peak_accel_g(fields.tidal_eigenvalues, metric.length_m,
+                                                crew_cfg.body_length_m)
+            sel = check_mask[idx]
+            if sel.any():
+                sm = sampled_margins(fields.stress[sel])
+                for c in CONDITIONS:
+                    cross[c]["exact"].append(fields.margins[c][sel])
+                    cross[c]["sampled"].append(np.asarray(getattr(sm, c.lower())))
+                    cross[c]["tol"].append(fields.tolerances[c][sel])
+        bar.update(stop)
+
+    ok = maps["reason"] == 0
+    audited = int(ok.sum())
+    counts = {r: int(np.count_nonzero(maps["reason"] == i + 1)) for i, r in enumerate(REASONS)}
+    if audited == 0:
+        detail = ", ".join(f"{v} {k}" for k, v in counts.items() if v)
+        raise NoAuditablePointError(f"{metric.path}: no auditable event in [region] "
+                                    f"({size} events: {detail})")
+
+    spatial = grid.spatial_sampled
+    tindex = grid.time_index(0, size)
+    per_time = grid.time_sampled and spatial
+
+    def integrate(values, mask):
+        """Σ values·weight over mask; a list per time sample when t is sampled."""
+        vals = np.where(mask, values * maps["weight"], 0.0)
+        if per_time:
+            return [float(v) for v in np.bincount(tindex, weights=vals, minlength=grid.n_times)]
+        return float(vals.sum())
+
+    conditions = {}
+    for c in CONDITIONS:
+        m, tol = maps["margin_" + c], maps["tol_" + c]
+        violating = ok & (m < -tol)
+        saturated = ok & (np.abs(m) <= tol)
+        worst = int(np.nanargmin(np.where(ok, m, np.nan)))
+        summary_regions, n_regions = _regions(grid, violating, m, maps, integrate, spatial)
+        refined_m, refined_pt = (None, None)
+        if refine:
+            refined_m, refined_pt = _refine(geometry, metric, grid, worst, c, float(m[worst]))
+        cx = cross[c]
+        if cx["exact"]:
+            ex, sa, tl = (np.concatenate(cx[k]) for k in ("exact", "sampled", "tol"))
+            above = int(np.count_nonzero(ex > sa + tl))
+            cross_check = {"points": int(ex.size), "exact_above_sampled": above,
+                           "sampled_min": float(np.nanmin(sa)), "exact_min": float(np.nanmin(ex)),
+                           "sampled_missed_violations": int(np.count_nonzero(
+                               (ex < -tl) & (sa >= -tl)))}
+        else:
+            cross_check = {"points": 0}
+        conditions[c] = ConditionSummary(
+            name=c, holds=not bool(violating.any()),
+            saturated_fraction=float(saturated.sum() / audited),
+            violating_fraction=float(violating.sum() / audited),
+            violating_volume=integrate(np.ones(size), violating) if spatial else None,
+            min_margin=float(m[worst]), worst_point=grid.event(worst),
+            refined_min_margin=refined_m, refined_worst_point=refined_pt,
+            volume_integral=integrate(np.minimum(np.nan_to_num(m), 0.0), violating)
+            if spatial else None,
+            regions=tuple(summary_regions), region_count=n_regions, cross_check=cross_check)
+        maps["cross_" + c] = cross[c]
+
+    energy = None
+    if spatial:
+        eul_ok = ok & np.isfinite(maps["rho"])
+        rho = np.nan_to_num(maps["rho"])
+        energy = EnergyBudget(total=integrate(rho, eul_ok),
+                              negative_total=integrate(np.minimum(rho, 0.0), eul_ok),
+                              length_m=metric.length_m)
+
+    tidal = _tidal_summary(grid, maps, tidal_eigs, ok, crew_cfg)
+    types = {"vacuum": 0, "I": 0, "II": 0, "III": 0, "IV": 0}
+    for code, name in enumerate(("vacuum", "I", "II", "III", "IV")):
+        types[name] = int(np.count_nonzero(ok & (maps["he_type"] == code)))
+
+    result = AuditResult(
+        metric=metric, grid=grid, parameters=dict(metric.parameters), points=size,
+        audited_points=audited, excluded_by_reason=counts,
+        resolved_as_limit=int(maps["limit"].sum()),
+        non_eulerian_points=int(np.count_nonzero(ok & ~maps["eulerian"])),
+        conditions=conditions, energy=energy, tidal=tidal, he_type_counts=types, maps=maps)
+    if crew and crew_cfg.start is not None:
+        from .crew.worldline import follow
+        result.crew = follow(metric, geometry)
+    result.seconds = time.monotonic() - t0
+    return result
+
+
+def _regions(grid, violating, m, maps, integrate, spatial):
+    """Connected violating regions (face connectivity), worst first."""
+    labels, n = ndimage.label(violating.reshape(grid.shape))
+    if n == 0:
+        return [], 0
+    flat = labels.ravel()
+    idx = np.arange(1, n + 1)
+    mins = ndimage.minimum(np.where(violating, m, np.inf), flat, idx)
+    arg = ndimage.minimum_position(np.where(violating, m, np.inf), flat, idx)
+    sizes = ndimage.sum_labels(np.ones_like(flat), flat, idx)
+    order = np.argsort(mins)[:MAX_REGIONS]
+    out = []
+    rho = np.nan_to_num(maps["rho"])
+    for k in order:
+        lab = k + 1
+        mask = flat == lab
+        worst = int(arg[k][0])
+        out.append(ViolatingRegion(
+            volume=integrate(np.ones_like(m), mask) if spatial else None,
+            min_margin=float(mins[k]),
+            eulerian_energy=integrate(rho, mask & np.isfinite(maps["rho"])) if spatial else None,
+            worst_point=grid.event(worst), points=int(sizes[k])))
+    return out, int(n)
+
+
+def _refine(geometry, metric, grid, worst: int, cond: str, start_value: float):
+    """Local minimisation of one margin on the exact kernels, from a grid point.
+
+    Nelder–Mead over the sampled coordinates, bounded to one grid spacing around
+    the start; events that cannot be audited count as +inf. Returns the better of
+    the start and the result.
+    """
+    start = grid.events(worst, worst + 1)[0]
+    axes = [metric.coordinates.index(n) for n in grid.axis_names]
+    bounds = []
+    for k, mu in enumerate(axes):
+        vals = grid.axis_values[k]
+        h = vals[1] - vals[0]
+        bounds.append((max(vals[0], start[mu] - h), min(vals[-1], start[mu] + h)))
+
+    def margin(y):
+        x = start.copy()
+        x[axes] = y
+        batch = geometry.evaluate(x[None, :], metric.parameters, use_exclude=True)
+        f = analyse(batch)
+        if f is None:
+            return np.inf
+        return float(f.margins[cond][0])
+
+    y0 = start[axes]
+    try:
+        res = optimize.minimize(margin, y0, method="Nelder-Mead", bounds=bounds,
+                                options={"maxfev": 60 * len(axes), "xatol": 1e-9,
+                                         "fatol": 1e-14})
+    except (ValueError, FloatingPointError):
+        return start_value, grid.event(worst)
+    if np.isfinite(res.fun) and res.fun < start_value:
+        x = start.copy()
+        x[axes] = res.x
+        return float(res.fun), {c: float(v) for c, v in zip(metric.coordinates, x)}
+    return start_value, grid.event(worst)
+
+
+def _tidal_summary(grid, maps, eigs, ok, crew_cfg) -> TidalSummary:
+    tg = maps["tidal_g"]
+    defined = ok & np.isfinite(tg)
+    levels = tidal_levels(crew_cfg.tidal_limit_g)
+    if not defined.any():
+        return TidalSummary(crew_cfg.frame, crew_cfg.body_length_m, None, None, None,
+                            {l.key: None for l in levels}, levels, int(ok.sum()))
+    peak = int(np.nanargmax(np.where(defined, tg, np.nan)))
+    n_def = int(defined.sum())
+    frac = {l.key: float(np.count_nonzero(defined & (tg > l.value_g)) / n_def) for l in levels}
+    return TidalSummary(crew_cfg.frame, crew_cfg.body_length_m, float(tg[peak]),
+                        grid.event(peak), [float(v) for v in eigs[peak]], frac, levels,
+                        int(np.count_nonzero(ok & ~np.isfinite(tg))))

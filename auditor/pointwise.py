@@ -1,0 +1,115 @@
+"""Everything the audit decides at each event of a batch.
+
+One function, :func:`analyse`, serves the single event of ``probe`` and the
+chunks of a region audit, so both give the same numbers by construction.
+Per auditable event it computes, in the auditing frame (Eulerian where the
+t = const slice is spacelike, principal elsewhere; DEVELOPERS.md "Frames"):
+T_âb̂ = G_âb̂/8π, its round-off, the exact NEC/WEC/SEC/DEC margins with their
+worst observers (coordinate components, upper index), the Hawking–Ellis type,
+the Eulerian energy density and the proper volume element sqrt(det γ_ij).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .conditions.hawking_ellis import classify
+from .conditions.margins import dec_margin, nec_margin, sec_margin, wec_margin
+from .conditions.stress import MARGIN_FACTOR, component_tolerance, frame_stress
+from .crew.tidal import tidal_eigen
+from .frames import auditing_frame, static
+from .geometry.points import PointBatch
+
+__all__ = ["CONDITIONS", "PointFields", "analyse", "margin_tolerances"]
+
+CONDITIONS = ("NEC", "WEC", "SEC", "DEC")
+
+
+def margin_tolerances(t_tol: np.ndarray) -> dict[str, np.ndarray]:
+    """Round-off of each margin from the round-off of T's frame components.
+
+    k = n + s and u = n + w weigh the 16 components of T by at most
+    (1 + √3)² < 8 (MARGIN_FACTOR); SEC's X = T − ½ (tr T) η adds the trace,
+    four more components weighted by ½|η|·|u|² ≤ 1 each, hence twice as much.
+    """
+    base = MARGIN_FACTOR * t_tol
+    return {"NEC": base, "WEC": base, "SEC": 2.0 * base, "DEC": base}
+
+
+@dataclass
+class PointFields:
+    """Per-event results of one batch; arrays hold the auditable events only."""
+
+    batch: PointBatch
+    stress: np.ndarray                 # (M,4,4) T_âb̂
+    t_tol: np.ndarray                  # (M,) round-off of T's frame components
+    frame_eulerian: np.ndarray         # (M,) bool
+    tetrad: np.ndarray                 # (M,4,4)
+    margins: dict = field(default_factory=dict)      # cond -> (M,)
+    tolerances: dict = field(default_factory=dict)   # cond -> (M,)
+    observers: dict = field(default_factory=dict)    # cond -> (M,4) coordinate comps
+    dec_pair: np.ndarray | None = None               # (M,2,4)
+    he_type: np.ndarray | None = None                # (M,) 0 vacuum, 1..4 types I..IV
+    rho: np.ndarray | None = None                    # (M,) Eulerian; NaN off-slice
+    sqrt_gamma: np.ndarray | None = None             # (M,) NaN off-slice
+    tidal_eigenvalues: np.ndarray | None = None      # (M,3) ascending; NaN where undefined
+    tidal_vectors: np.ndarray | None = None          # (M,3,3) frame components, columns
+
+    def holds(self, cond: str) -> np.ndarray:
+        return self.margins[cond] >= -self.tolerances[cond]
+
+    def saturated(self, cond: str) -> np.ndarray:
+        return np.abs(self.margins[cond]) <= self.tolerances[cond]
+
+
+def _to_coordinates(E: np.ndarray, spatial: np.ndarray) -> np.ndarray:
+    """Coordinate components of n + v (v spatial, frame components) (M,4)."""
+    frame = np.concatenate([np.ones((len(spatial), 1)), spatial], axis=1)
+    return np.einsum("na,nam->nm", frame, E)
+
+
+def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | None:
+    """Frame, stress-energy, margins, type, Eulerian density and tides of a batch.
+
+    ``crew_frame`` picks the observer family of the tidal map: ``eulerian``
+    (defined where the slice is spacelike) or ``static`` (where ∂_t is timelike).
+    """
+    curv = batch.curvature
+    if curv is None:
+        return None
+    E, eul = auditing_frame(curv.g, curv.ginv)
+    T = frame_stress(curv.einstein, E)
+    t_tol = component_tolerance(curv.scale, E)
+    out = PointFields(batch=batch, stress=T, t_tol=t_tol, frame_eulerian=eul, tetrad=E)
+    out.tolerances = margin_tolerances(t_tol)
+
+    m, s = nec_margin(T)
+    out.margins["NEC"], out.observers["NEC"] = m, _to_coordinates(E, s)
+    m, w = wec_margin(T)
+    out.margins["WEC"], out.observers["WEC"] = m, _to_coordinates(E, w)
+    m, w = sec_margin(T)
+    out.margins["SEC"], out.observers["SEC"] = m, _to_coordinates(E, w)
+    m, s1, s2 = dec_margin(T)
+    out.margins["DEC"] = m
+    k1, k2 = _to_coordinates(E, s1), _to_coordinates(E, s2)
+    out.observers["DEC"] = k1
+    out.dec_pair = np.stack([k1, k2], axis=1)
+    out.he_type = classify(T, t_tol)
+
+    out.rho = np.where(eul, T[:, 0, 0], np.nan)
+    with np.errstate(invalid="ignore"):
+        det = np.linalg.det(curv.g[:, 1:, 1:])
+        out.sqrt_gamma = np.where(eul & (det > 0), np.sqrt(np.abs(det)), np.nan)
+
+    if crew_frame == "static":
+        Ec, cok = static(curv.g)
+    else:
+        Ec, cok = E, eul
+    lam = np.full((len(T), 3), np.nan)
+    vec = np.full((len(T), 3, 3), np.nan)
+    if cok.any():
+        lam[cok], vec[cok] = tidal_eigen(curv.riemann[cok], Ec[cok])
+    out.tidal_eigenvalues, out.tidal_vectors = lam, vec
+    return out
