@@ -113,7 +113,7 @@ def main(argv=None) -> int:
     try:
         return args.func(args)
     except AuditorError as exc:
-        msg = " ".join(str(exc).split())
+        msg = str(exc).replace("\r", " ").replace("\n", " ")
         sys.stderr.write(f"auditor: error: {msg}\n")
         return exc.exit_code
     except KeyboardInterrupt:

@@ -62,7 +62,9 @@ class ExpressionError(MetricFileError):
     """An expression that the safe arithmetic language does not accept.
 
     ``text`` is the offending expression and ``column`` (0-based) points at the
-    offending part; :meth:`caret_line` draws it.
+    offending part; :meth:`caret_line` draws it. ``located`` is the message
+    without file and key (reason, column, text and hint), for callers that
+    label it themselves, such as ``--at``.
     """
 
     def __init__(self, message: str, *, text: str = "", column: int | None = None,
@@ -77,13 +79,23 @@ class ExpressionError(MetricFileError):
             shown = f"{message}{where} '{_one_line(text)}'"
         if hint:
             shown += f" ({hint})"
+        self.located = shown
         super().__init__(shown, path=path, key=key)
 
     def caret_line(self) -> str:
-        """The expression with a caret under the offending column."""
+        """The expression (or, if long, the part around the column) with a
+        caret under the offending column."""
         if not self.text or self.column is None:
             return ""
-        return f"{_one_line(self.text)}\n{' ' * self.column}^"
+        flat = _one_line(self.text, limit=None)
+        width = _CARET_WIDTH
+        start = 0
+        if len(flat) > width:
+            start = max(0, min(self.column - width // 2, len(flat) - width))
+        head = "..." if start > 0 else ""
+        tail = "..." if start + width < len(flat) else ""
+        return (f"{head}{flat[start:start + width]}{tail}\n"
+                f"{' ' * (len(head) + self.column - start)}^")
 
 
 class UsageError(InputError):
@@ -98,6 +110,10 @@ class NoAuditablePointError(AuditorError):
     """Every point of the requested region was excluded."""
 
 
-def _one_line(text: str, limit: int = 120) -> str:
-    flat = " ".join(str(text).split())
-    return flat if len(flat) <= limit else flat[: limit - 3] + "..."
+_CARET_WIDTH = 100
+
+
+def _one_line(text: str, limit: int | None = 120) -> str:
+    # Each line break or tab becomes one space, so columns still match.
+    flat = "".join(" " if ch.isspace() else ch for ch in str(text))
+    return flat if limit is None or len(flat) <= limit else flat[: limit - 3] + "..."

@@ -56,6 +56,8 @@ class PointFields:
     sqrt_gamma: np.ndarray | None = None             # (M,) NaN off-slice
     tidal_eigenvalues: np.ndarray | None = None      # (M,3) ascending; NaN where undefined
     tidal_vectors: np.ndarray | None = None          # (M,3,3) frame components, columns
+    station_accel: np.ndarray | None = None          # (M,) proper acceleration at fixed
+                                                     # spatial coordinates (1/length)
 
     def holds(self, cond: str) -> np.ndarray:
         return self.margins[cond] >= -self.tolerances[cond]
@@ -112,4 +114,23 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
     if cok.any():
         lam[cok], vec[cok] = tidal_eigen(curv.riemann[cok], Ec[cok])
     out.tidal_eigenvalues, out.tidal_vectors = lam, vec
+    out.station_accel = station_acceleration(curv)
     return out
+
+
+def station_acceleration(curv) -> np.ndarray:
+    """Proper acceleration of an observer held at fixed spatial coordinates.
+
+    u = ∂_t / sqrt(−g_tt); a^μ = u^ν ∇_ν u^μ = δ^μ_t u^t ∂_t u^t + (u^t)² Γ^μ_tt with
+    ∂_t u^t = ½ (−g_tt)^(−3/2) ∂_t g_tt; returns sqrt(g_μν a^μ a^ν), NaN where ∂_t
+    is not timelike (common practice; for a static metric this is the familiar
+    a = ∂_r ln sqrt(−g_tt) / sqrt(g_rr)).
+    """
+    gtt = curv.g[:, 0, 0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ut = 1.0 / np.sqrt(-gtt)
+        dut = 0.5 * (-gtt) ** -1.5 * curv.dg[:, 0, 0, 0]
+        a = ut[:, None] ** 2 * curv.christoffel[:, :, 0, 0]
+        a[:, 0] += ut * dut
+        mag2 = np.einsum("na,nab,nb->n", a, curv.g, a)
+        return np.where(gtt < 0, np.sqrt(np.maximum(mag2, 0.0)), np.nan)

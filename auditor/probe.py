@@ -93,6 +93,8 @@ def parse_event(metric, text: str, *, what: str = "--at") -> dict[str, float]:
     Values are expressions of the metric-file language; parameters may be used.
     """
     params = {p: sp.Float(v) for p, v in metric.parameters.items()}
+    others = {c: (f"coordinate '{c}' cannot be used in a value of {what}",
+                  "values may use numbers, pi and the parameters") for c in metric.coordinates}
     out: dict[str, float] = {}
     for item in split_assignments(text):
         if "=" not in item:
@@ -106,11 +108,10 @@ def parse_event(metric, text: str, *, what: str = "--at") -> dict[str, float]:
         if name in out:
             raise UsageError(f"{what}: coordinate '{name}' given twice")
         try:
-            expr = parse_expression(value, params, key=what)
+            expr = parse_expression(value, params, key=what, unavailable=others)
             val = float(expr)
         except ExpressionError as exc:
-            raise UsageError(f"{what} {name}: {exc.reason}"
-                             + (f" ({exc.hint})" if exc.hint else "") + f" in '{value}'") from exc
+            raise UsageError(f"{what} {name}: {exc.located}") from exc
         except (TypeError, ValueError) as exc:
             raise UsageError(f"{what} {name}: '{value}' is not a number") from exc
         if not np.isfinite(val):
@@ -126,7 +127,7 @@ def probe(metric, at: Mapping[str, float], geometry: Geometry | None = None) -> 
     """Exact curvature, Einstein tensor and matter at the event ``at``."""
     geometry = geometry or Geometry(metric)
     x = np.array([[float(at[c]) for c in metric.coordinates]])
-    batch = geometry.evaluate(x, use_exclude=False)
+    batch = geometry.evaluate(x, metric.parameters, use_exclude=False)
     if batch.reason[0] != 0:
         reason = REASONS[batch.reason[0] - 1]
         where = ", ".join(f"{c}={at[c]:g}" for c in metric.coordinates)

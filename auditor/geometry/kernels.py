@@ -52,13 +52,45 @@ for _m, (_c, _d) in enumerate(_PAIRS):
 N_RAW = 150
 
 
-def smooth_rewrite(expr: sp.Expr) -> sp.Expr:
-    """Rewrite reciprocal functions so that NumPy evaluates them without overflow.
+class StableTanh(sp.Function):
+    """tanh whose derivative is sech² (SymPy's own is 1 − tanh², which loses all
+    relative precision once |a| > ~5 and is exactly 0 beyond |a| ~ 19: the
+    exponential tails of a tanh wall would vanish from the curvature)."""
 
-    SymPy prints sech, coth, ... through exponentials, which overflow to inf/inf
-    for large arguments; 1/cosh and 1/tanh do not.
+    nargs = 1
+    is_real = True
+
+    def fdiff(self, argindex=1):
+        return StableSech(self.args[0]) ** 2
+
+
+class StableSech(sp.Function):
+    """sech with derivative −sech·tanh, printed as 1/cosh (0 when cosh overflows)."""
+
+    nargs = 1
+    is_real = True
+
+    def fdiff(self, argindex=1):
+        return -StableSech(self.args[0]) * StableTanh(self.args[0])
+
+
+class _KernelPrinter(NumPyPrinter):
+    def _print_StableTanh(self, expr):
+        return f"numpy.tanh({self._print(expr.args[0])})"
+
+    def _print_StableSech(self, expr):
+        return f"(1/numpy.cosh({self._print(expr.args[0])}))"
+
+
+def smooth_rewrite(expr: sp.Expr) -> sp.Expr:
+    """Rewrite functions so that NumPy evaluates them and their derivatives stably.
+
+    tanh and sech become :class:`StableTanh` and :class:`StableSech`, whose
+    derivatives stay products of bounded functions. SymPy prints coth, csch, ...
+    through exponentials, which overflow to inf/inf for large arguments; 1/tanh
+    and 1/sinh do not.
     """
-    return expr.replace(sp.sech, lambda a: 1 / sp.cosh(a)) \
+    return expr.replace(sp.tanh, StableTanh).replace(sp.sech, StableSech) \
                .replace(sp.csch, lambda a: 1 / sp.sinh(a)) \
                .replace(sp.coth, lambda a: 1 / sp.tanh(a)) \
                .replace(sp.sec, lambda a: 1 / sp.cos(a)) \
@@ -100,8 +132,8 @@ def _generate(exprs: Sequence[sp.Expr], coord_syms, param_syms) -> str:
             raise RuntimeError(f"unexpected symbols in kernel: {sorted(map(str, stray))}")
     temps = sp.numbered_symbols("_t")
     replacements, reduced = sp.cse(list(exprs), symbols=temps, optimizations="basic")
-    printer = NumPyPrinter({"fully_qualified_modules": True, "allow_unknown_functions": False,
-                            "inline": True})
+    printer = _KernelPrinter({"fully_qualified_modules": True,
+                              "allow_unknown_functions": False, "inline": True})
     lines = ["def kernel(x, p, out):"]
     for i, s in enumerate(coord_syms):
         lines.append(f"    {s.name} = x[{i}]")

@@ -12,12 +12,14 @@ import keyword
 import math
 import os
 import tomllib
-from typing import Any, Mapping
+from collections import ChainMap
+from collections.abc import Mapping
+from typing import Any
 
 import sympy as sp
 
 from ..errors import MetricFileError, UsageError
-from .expr import CONSTANTS, FUNCTIONS, is_valid_name, parse_expression, suggest
+from .expr import CONSTANTS, FUNCTIONS, MAX_DEPTH, is_valid_name, parse_expression, suggest
 from .model import Crew, Definition, Metric, Region
 
 __all__ = ["load_metric", "loads_metric", "parse_overrides", "DEFAULT_POINTS"]
@@ -102,8 +104,7 @@ def constant_value(text: str, *, what: str) -> float:
     try:
         expr = parse_expression(text, {}, key=what)
     except ExpressionError as exc:
-        raise UsageError(f"{what}: {exc.reason}"
-                         + (f" ({exc.hint})" if exc.hint else "") + f" in '{text}'") from exc
+        raise UsageError(f"{what}: {exc.located}") from exc
     try:
         value = float(expr)
     except (TypeError, ValueError) as exc:
@@ -129,16 +130,20 @@ class _Loader:
         for k in table:
             if k in allowed:
                 continue
-            if where != "metric" and k in _METRIC_KEYS + _ADM_KEYS:
-                self.fail(f"'{k}' belongs under [metric]"
-                          + (".adm" if k in _ADM_KEYS else "") + f", not {where or 'the top level'}",
+            label = f"[{where}]" if where else "the top level"
+            home = "metric.adm" if k in _ADM_KEYS else "metric" if k in _METRIC_KEYS else None
+            if home and where != home:
+                self.fail(f"'{k}' belongs under [{home}], not {label}",
                           k if not where else f"{where}.{k}")
             if where == "" and k in _REGION_EXTRA:
                 self.fail(f"'{k}' belongs under [region]", k)
+            if where and k in _TOP_KEYS:
+                self.fail(f"'{k}' is a top-level key but sits in {label}: in TOML a key belongs "
+                          "to the last [table] above it, so put top-level keys before the first "
+                          "[table]", f"{where}.{k}")
             close = suggest(k, allowed)
             hint = f"; did you mean '{close}'?" if close else \
                 f"; known keys: {', '.join(allowed)}"
-            label = f"[{where}]" if where else "the top level"
             self.fail(f"unknown key '{k}' in {label}{hint}", f"{where}.{k}" if where else k)
 
     def number(self, value, key, *, positive=False):
@@ -161,11 +166,32 @@ class _Loader:
             self.fail(f"expected a table, got {_tname(value)}", key)
         return value
 
-    def expr(self, text, names, key):
+    def expr(self, text, names, key, unavailable=None):
         if isinstance(text, (int, float)) and not isinstance(text, bool):
             text = repr(text)
         text = self.string(text, key)
-        return parse_expression(text, names, path=self.path, key=key)
+        scope_errors = ChainMap(unavailable, self.differentials) if unavailable is not None \
+            else self.differentials
+        return parse_expression(text, names, path=self.path, key=key, unavailable=scope_errors)
+
+    def bounded(self, expr, key, what):
+        """``expr`` (definitions substituted) if it is small enough to differentiate."""
+        nodes, depth = _measure(expr, self.sizes)
+        if nodes > MAX_EXPANDED_NODES:
+            self.fail(f"{what} has {nodes} operations once definitions are substituted, more "
+                      f"than the {MAX_EXPANDED_NODES} accepted (a definition used n times is "
+                      "copied n times)", key)
+        if depth > MAX_EXPANDED_DEPTH:
+            self.fail(f"{what} is nested {depth} deep once definitions are substituted, more "
+                      f"than the {MAX_EXPANDED_DEPTH} accepted", key)
+        return expr
+
+    def constant(self, text, key):
+        """A constant expression (``"pi/2"``) as a finite float."""
+        value = self.expr(text, {}, key)
+        if value.free_symbols:
+            self.fail(f"'{text}' is not a constant", key)
+        return float(value)
 
     # -- build ------------------------------------------------------------------
     def build(self) -> Metric:
@@ -173,8 +199,12 @@ class _Loader:
         self.check_keys(doc, _TOP_KEYS, "")
         for required in ("name", "coordinates", "metric"):
             if required not in doc:
+                inside = [t for t, v in doc.items() if isinstance(v, dict) and required in v]
                 self.fail(f"missing required key '{required}'"
-                          + (" (a [metric] table)" if required == "metric" else ""), required)
+                          + (" (a [metric] table)" if required == "metric" else "")
+                          + (f"; it is under [{inside[0]}]: in TOML a key belongs to the last "
+                             "[table] above it, so put top-level keys before the first [table]"
+                             if inside and required != "metric" else ""), required)
         name = self.string(doc["name"], "name")
         if not name.strip():
             self.fail("name is empty", "name")
@@ -184,6 +214,9 @@ class _Loader:
         coords = self.coordinates(doc["coordinates"])
         used: dict[str, str] = {}
         differentials = {"d" + c for c in coords}
+        self.differentials = {
+            d: (f"differential '{d}' outside the line element",
+                "differentials may appear only in [metric].line_element") for d in differentials}
 
         def declare(nm, kind, key):
             if not is_valid_name(nm):
@@ -229,10 +262,13 @@ class _Loader:
         defines_doc = self.table(doc.get("define", {}), "define")
         definitions: list[Definition] = []
         expansion: dict[sp.Symbol, sp.Expr] = {}
-        for k, v in defines_doc.items():
+        position = {k: i for i, k in enumerate(defines_doc)}
+        self.sizes: dict[int, tuple[int, int, sp.Basic]] = {}
+        for i, (k, v) in enumerate(defines_doc.items()):
             declare(k, "definition", f"define.{k}")
-            display = self.expr(v, names, f"define.{k}")
-            expanded = display.xreplace(expansion)
+            # [define] is ordered: a definition may use those above it only.
+            display = self.expr(v, names, f"define.{k}", unavailable=_NotYetDefined(position, k))
+            expanded = self.bounded(display.xreplace(expansion), f"define.{k}", f"'{k}'")
             sym = sp.Symbol(k, real=True)
             names[k] = sym
             user[k] = sym
@@ -242,6 +278,10 @@ class _Loader:
         metric_doc = self.table(doc["metric"], "metric")
         form, g_display, metric_text, lapse_disp = self.metric(metric_doc, coords, names)
         g_expanded = g_display.xreplace(expansion)
+        for a in range(4):
+            for b in range(a, 4):
+                self.bounded(g_expanded[a, b], "metric",
+                             f"the component \"{coords[a]} {coords[b]}\" of g")
 
         coord_syms = tuple(sp.Symbol(f"_c{i}", real=True) for i in range(4))
         param_syms = tuple(sp.Symbol(f"_p{i}", real=True) for i in range(len(parameters)))
@@ -311,19 +351,30 @@ class _Loader:
         scope = dict(names)
         scope.update({str(d): d for d in dsyms})
         expr = parse_expression(text, scope, path=self.path, key=key)
+        not_polynomial = ("the line element is not a polynomial in the differentials "
+                          f"{', '.join(map(str, dsyms))} (a differential inside a function or a "
+                          f"denominator, or to a non-integer power?) in '{_short(text)}'")
+        # Stand-ins for the parts free of differentials, so that expanding the
+        # polynomial in the differentials never expands (x + y)**200 and the like.
+        stand_ins: dict[sp.Symbol, sp.Expr] = {}
+        abstract = _abstract(expr, set(dsyms), stand_ins)
+        degree = _degree_bound(abstract, set(dsyms))
+        if degree is None:
+            self.fail(not_polynomial, key)
+        if degree > _MAX_LINE_DEGREE:
+            self.fail(f"term of degree up to {degree} in the differentials in '{_short(text)}'; "
+                      "every term must be of degree exactly two, like dx**2 or dt*dx", key)
         try:
-            poly = sp.Poly(expr, *dsyms)
+            poly = sp.Poly(abstract, *dsyms)
         except sp.PolynomialError as exc:
-            raise MetricFileError(
-                "the line element is not a polynomial in the differentials "
-                f"{', '.join(map(str, dsyms))} (a differential inside a function or a "
-                "denominator?)", path=self.path, key=key) from exc
+            raise MetricFileError(not_polynomial, path=self.path, key=key) from exc
         g = sp.zeros(4, 4)
         for monom, coeff in poly.terms():
+            coeff = coeff.xreplace(stand_ins)
             deg = sum(monom)
             if deg != 2:
-                term = sp.Mul(*[d**e for d, e in zip(dsyms, monom)])
-                self.fail(f"term of degree {deg} in the differentials ({coeff}*{term}) in "
+                term = coeff * sp.Mul(*[d**e for d, e in zip(dsyms, monom)])
+                self.fail(f"term of degree {deg} in the differentials ({term}) in "
                           f"'{_short(text)}'; every term must be of degree exactly two, "
                           "like dx**2 or dt*dx", key)
             idx = [i for i, e in enumerate(monom) for _ in range(e)]
@@ -389,10 +440,12 @@ class _Loader:
                                             f"metric.adm.spatial[{i}][{j}]")
             for i in range(3):
                 for j in range(i + 1, 3):
-                    if sp.simplify(gamma[i, j] - gamma[j, i]) != 0:
+                    if not _same(gamma[i, j], gamma[j, i]):
                         self.fail(f"spatial metric is not symmetric: [{i}][{j}] = "
-                                  f"'{spatial_doc[i][j]}' but [{j}][{i}] = '{spatial_doc[j][i]}'",
+                                  f"'{spatial_doc[i][j]}' but [{j}][{i}] = '{spatial_doc[j][i]}'; "
+                                  "write the same expression in both places",
                                   "metric.adm.spatial")
+                    gamma[j, i] = gamma[i, j]
         else:
             self.fail("spatial must be \"identity\" or a 3x3 list of expressions",
                       "metric.adm.spatial")
@@ -435,7 +488,8 @@ class _Loader:
                 if k not in axes:
                     close = suggest(k, axes)
                     self.fail(f"'{k}' is not a sampled axis"
-                              + (f"; did you mean '{close}'?" if close else ""),
+                              + (f"; did you mean '{close}'?" if close else
+                                 f"; sampled axes: {', '.join(axes)}"),
                               f"region.points.{k}")
             for c in axes:
                 points[c] = self._count(pts.get(c, DEFAULT_POINTS), f"region.points.{c}")
@@ -451,7 +505,8 @@ class _Loader:
         if "exclude" in reg:
             exclude_text = self.string(reg["exclude"], "region.exclude")
             exclude = self.expr(exclude_text, names, "region.exclude")
-            exclude = exclude.xreplace(expansion).xreplace(internal)
+            exclude = self.bounded(exclude.xreplace(expansion), "region.exclude", "the exclusion")
+            exclude = exclude.xreplace(internal)
         return Region(fixed=fixed, axes=axes, points=points, exclude=exclude,
                       exclude_text=exclude_text)
 
@@ -492,7 +547,7 @@ class _Loader:
                     self.fail(f"start event lacks coordinate '{k}'", "crew.start")
                 v = st[k]
                 if isinstance(v, str):
-                    start[k] = constant_value(v, what=f"crew.start.{k}")
+                    start[k] = self.constant(v, f"crew.start.{k}")
                 else:
                     start[k] = self.number(v, f"crew.start.{k}")
             vel = c["velocity"]
@@ -506,6 +561,120 @@ class _Loader:
             duration = self.number(c["duration"], "crew.duration", positive=True)
         return Crew(body_length_m=body, frame=frame, tidal_limit_g=limit, start=start,
                     velocity=velocity, duration=duration)
+
+
+#: Largest metric component, definition or exclusion once definitions are
+#: substituted, in SymPy tree nodes (a shared part counted each time it occurs,
+#: as symbolic differentiation visits it). The sample metrics need at most 64;
+#: definitions that use the one above twice double at each step, and this stops
+#: them before the expression is too large to differentiate.
+MAX_EXPANDED_NODES = 20_000
+#: Deepest nesting once definitions are substituted, in SymPy tree levels. Each
+#: expression is at most MAX_DEPTH deep, and SymPy's differentiation of the
+#: curvature kernels recurses once per level (the default Python recursion
+#: limit, 1000 frames, was exceeded at depth 200 in our tests and not at 120).
+MAX_EXPANDED_DEPTH = 2 * MAX_DEPTH
+
+#: Highest degree in the differentials examined term by term; beyond it the
+#: line element is refused before it is expanded.
+_MAX_LINE_DEGREE = 8
+#: Largest expression (SymPy operation count) handed to ``simplify`` when two
+#: entries that should be equal are written differently: simplify has no time bound.
+_MAX_SIMPLIFY_OPS = 60
+
+
+class _NotYetDefined(Mapping):
+    """The [define] names that the definition ``current`` may not use: itself and
+    those below it, each mapped to the (message, hint) of the error. Looked up
+    lazily, so that a file with many definitions costs no more than linear time."""
+
+    def __init__(self, position: Mapping[str, int], current: str):
+        self.position = position
+        self.current = current
+        self.at = position[current]
+
+    def __getitem__(self, name):
+        where = self.position.get(name)
+        if where is None or where < self.at:
+            raise KeyError(name)
+        k = self.current
+        if where == self.at:
+            return (f"definition '{k}' refers to itself", "a definition may use only "
+                    "coordinates, parameters and the definitions above it")
+        return (f"'{name}' is defined below '{k}' in [define]",
+                f"a definition may use only those above it; move '{name}' above '{k}'")
+
+    def __iter__(self):
+        return (n for n, i in self.position.items() if i >= self.at)
+
+    def __len__(self):
+        return sum(1 for _ in self)
+
+
+def _measure(expr, memo) -> tuple[int, int]:
+    """(tree nodes, depth) of ``expr``; ``memo`` (by object identity, shared
+    between calls) makes the cost linear in the number of distinct parts."""
+    stack = [(expr, False)]
+    while stack:
+        e, ready = stack.pop()
+        if id(e) in memo:
+            continue
+        if ready or not e.args:
+            nodes = 1 + sum(memo[id(a)][0] for a in e.args)
+            depth = 1 + max((memo[id(a)][1] for a in e.args), default=0)
+            memo[id(e)] = (nodes, depth, e)   # keep e alive so its id is not reused
+        else:
+            stack.append((e, True))
+            stack.extend((a, False) for a in e.args if id(a) not in memo)
+    nodes, depth, _ = memo[id(expr)]
+    return nodes, depth
+
+
+def _abstract(expr, dsyms, stand_ins, _seen=None):
+    """``expr`` with each maximal part free of ``dsyms`` replaced by a stand-in
+    symbol; ``stand_ins`` receives stand-in -> part."""
+    seen = {} if _seen is None else _seen
+    if not (expr.free_symbols & dsyms):
+        if expr.is_Number:
+            return expr
+        if expr not in seen:
+            seen[expr] = sp.Dummy(f"c{len(seen)}", real=True)
+            stand_ins[seen[expr]] = expr
+        return seen[expr]
+    if expr in dsyms:
+        return expr
+    return expr.func(*[_abstract(a, dsyms, stand_ins, seen) for a in expr.args])
+
+
+def _degree_bound(expr, dsyms):
+    """An upper bound on the degree of ``expr`` in ``dsyms``, or None if it is
+    not a polynomial in them."""
+    if not (expr.free_symbols & dsyms):
+        return 0
+    if expr in dsyms:
+        return 1
+    if expr.is_Add:
+        parts = [_degree_bound(a, dsyms) for a in expr.args]
+        return None if None in parts else max(parts)
+    if expr.is_Mul:
+        parts = [_degree_bound(a, dsyms) for a in expr.args]
+        return None if None in parts else sum(parts)
+    if expr.is_Pow and expr.exp.is_Integer and expr.exp >= 0:
+        base = _degree_bound(expr.base, dsyms)
+        return None if base is None else base * int(expr.exp)
+    return None
+
+
+def _same(a, b) -> bool:
+    """True if ``a`` and ``b`` are the same expression (small ones up to simplification)."""
+    if a == b:
+        return True
+    diff = a - b
+    if diff == 0:
+        return True
+    if sp.count_ops(diff) > _MAX_SIMPLIFY_OPS:
+        return False
+    return sp.simplify(diff) == 0
 
 
 def _tname(v: Any) -> str:
