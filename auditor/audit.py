@@ -127,10 +127,12 @@ class TidalSummary:
     fraction_above: dict
     levels: tuple
     undefined_points: int
+    noise_floor_g: float | None = None
 
     def to_json(self) -> dict:
         return {
             "frame": self.frame, "body_length_m": self.body_length_m,
+            "noise_floor_g": self.noise_floor_g,
             "peak_accel_g": self.peak_accel_g, "peak_point": self.peak_point,
             "peak_eigenvalues": self.peak_eigenvalues,
             "fraction_above": dict(self.fraction_above),
@@ -269,7 +271,7 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
     maps = {"reason": np.zeros(size, np.int8), "he_type": np.full(size, -1, np.int8),
             "rho": nan(), "weight": np.zeros(size), "tidal_g": nan(),
             "eulerian": np.zeros(size, bool), "limit": np.zeros(size, bool),
-            "station_g": nan()}
+            "station_g": nan(), "tidal_floor_g": nan()}
     for c in CONDITIONS:
         maps["margin_" + c] = nan()
         maps["tol_" + c] = nan()
@@ -303,6 +305,8 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
                                                 crew_cfg.body_length_m)
             maps["station_g"][idx] = units.accel_g(
                 units.proper_accel_m_s2(fields.station_accel, metric.length_m))
+            maps["tidal_floor_g"][idx] = peak_accel_g(fields.tidal_tol[:, None], metric.length_m,
+                                                      crew_cfg.body_length_m)
             sel = check_mask[idx]
             if sel.any():
                 sm = sampled_margins(fields.stress[sel], n_dirs=CROSS_CHECK_DIRECTIONS)
@@ -480,9 +484,11 @@ def _tidal_summary(grid, maps, eigs, ok, crew_cfg) -> TidalSummary:
     peak = int(np.nanargmax(np.where(defined, tg, np.nan)))
     n_def = int(defined.sum())
     frac = {l.key: float(np.count_nonzero(defined & (tg > l.value_g)) / n_def) for l in levels}
+    floor = maps["tidal_floor_g"]
     return TidalSummary(crew_cfg.frame, crew_cfg.body_length_m, float(tg[peak]),
                         grid.event(peak), [float(v) for v in eigs[peak]], frac, levels,
-                        int(np.count_nonzero(ok & ~np.isfinite(tg))))
+                        int(np.count_nonzero(ok & ~np.isfinite(tg))),
+                        float(np.nanmax(np.where(defined, floor, np.nan))))
 
 
 def _station_summary(grid, maps, ok) -> StationSummary:

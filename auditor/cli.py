@@ -8,6 +8,7 @@ but the crew worldline exceeds its tidal limit.
 from __future__ import annotations
 
 import argparse
+import shlex
 import os
 import sys
 
@@ -57,6 +58,18 @@ def build_parser() -> argparse.ArgumentParser:
                    help="conditions that decide the exit code (default all four)")
     p.add_argument("--quiet", action="store_true", help="no progress on stderr")
     p.set_defaults(func=_cmd_check)
+
+    p = sub.add_parser("report", help="audit and write the PDF report")
+    p._sub = "report"
+    _common(p)
+    p.add_argument("-o", "--output", default="audit.pdf", metavar="PDF",
+                   help="PDF report to write (default audit.pdf)")
+    p.add_argument("--json", metavar="PATH|-", help="also write the audit JSON")
+    p.add_argument("--latex", metavar="PATH", help="also write a LaTeX (booktabs) table")
+    p.add_argument("--require", default="NEC,WEC,SEC,DEC", metavar="NEC,WEC,...",
+                   help="conditions that decide the exit code (default all four)")
+    p.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    p.set_defaults(func=_cmd_report)
     return parser
 
 
@@ -107,9 +120,30 @@ def _cmd_check(args) -> int:
     return result.exit_code(require)
 
 
+def _cmd_report(args) -> int:
+    from .audit import audit
+    from .outputs import write_json
+    from .report import write_latex, write_report
+    require = _require(args.require)
+    metric = _load(args)
+    result = audit(metric, progress=False if args.quiet else None)
+    command = "auditor " + shlex.join(args.argv)
+    write_report(result, args.output, require=require, command=command)
+    if args.json:
+        write_json(result.to_json(), args.json)
+    if args.latex:
+        write_latex(result, args.latex)
+    if args.json != "-":
+        print(f"wrote {args.output}" + (f", {args.latex}" if args.latex else "")
+              + (f", {args.json}" if args.json else ""))
+    return result.exit_code(require)
+
+
 def main(argv=None) -> int:
     parser = build_parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
     args = parser.parse_args(argv)
+    args.argv = argv
     try:
         return args.func(args)
     except AuditorError as exc:

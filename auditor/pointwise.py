@@ -56,6 +56,7 @@ class PointFields:
     sqrt_gamma: np.ndarray | None = None             # (M,) NaN off-slice
     tidal_eigenvalues: np.ndarray | None = None      # (M,3) ascending; NaN where undefined
     tidal_vectors: np.ndarray | None = None          # (M,3,3) frame components, columns
+    tidal_tol: np.ndarray | None = None              # (M,) round-off of the eigenvalues
     station_accel: np.ndarray | None = None          # (M,) proper acceleration at fixed
                                                      # spatial coordinates (1/length)
 
@@ -83,7 +84,7 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
         return None
     E, eul = auditing_frame(curv.g, curv.ginv)
     T = frame_stress(curv.einstein, E)
-    t_tol = component_tolerance(curv.scale, E)
+    t_tol = component_tolerance(curv.scale_terms, E)
     out = PointFields(batch=batch, stress=T, t_tol=t_tol, frame_eulerian=eul, tetrad=E)
     out.tolerances = margin_tolerances(t_tol)
 
@@ -114,6 +115,10 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
     if cok.any():
         lam[cok], vec[cok] = tidal_eigen(curv.riemann[cok], Ec[cok])
     out.tidal_eigenvalues, out.tidal_vectors = lam, vec
+    # Round-off of E_ij = R_{i0j0}: frame components of Riemann carry the same
+    # bound as T's (conditions/stress.py), in the crew's own frame.
+    out.tidal_tol = np.where(cok, component_tolerance(curv.scale_terms, np.where(
+        cok[:, None, None], Ec, 0.0)), np.nan)
     out.station_accel = station_acceleration(curv)
     return out
 

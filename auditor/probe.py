@@ -13,12 +13,13 @@ import numpy as np
 import sympy as sp
 
 from . import units
-from .conditions.stress import component_tolerance, frame_stress
+from .conditions.hawking_ellis import TYPE_NAMES
 from .errors import ExpressionError, PointError, UsageError
-from .frames import auditing_frame
+from .crew.tidal import peak_accel_g
 from .geometry import Geometry
 from .geometry.points import REASONS
 from .metric.expr import parse_expression, suggest
+from .pointwise import CONDITIONS, analyse
 
 __all__ = ["ProbeResult", "probe", "parse_event", "split_assignments"]
 
@@ -48,6 +49,10 @@ class ProbeResult:
     tolerance: float                      # round-off of the components of T
     resolved_as_limit: bool
     length_m: float
+    hawking_ellis_type: str | None = None
+    conditions: dict = field(default_factory=dict)
+    tidal: dict = field(default_factory=dict)
+    station_accel_g: float | None = None
     extras: dict = field(default_factory=dict)
 
     def to_json(self) -> dict:
@@ -60,6 +65,10 @@ class ProbeResult:
             "kretschmann": self.kretschmann,
             "eulerian_energy_density": self.eulerian_energy_density,
             "eulerian_energy_density_J_m3": self.eulerian_energy_density_J_m3,
+            "hawking_ellis_type": self.hawking_ellis_type,
+            "conditions": self.conditions,
+            "tidal": self.tidal,
+            "station_proper_accel_g": self.station_accel_g,
             "frame": self.frame,
             "stress_energy_frame": self.stress_frame,
             "stress_energy_tolerance": self.tolerance,
@@ -133,15 +142,38 @@ def probe(metric, at: Mapping[str, float], geometry: Geometry | None = None) -> 
         where = ", ".join(f"{c}={at[c]:g}" for c in metric.coordinates)
         raise PointError(f"event ({where}) cannot be audited: {_REASON_TEXT[reason]}")
     curv = batch.curvature
-    E, eulerian_ok = auditing_frame(curv.g, curv.ginv)
-    T = frame_stress(curv.einstein, E)
-    tol = component_tolerance(curv.scale, E)
-    rho = float(T[0, 0, 0]) if eulerian_ok[0] else float("nan")
+    f = analyse(batch, metric.crew.frame)
+    eul = bool(f.frame_eulerian[0])
+    frame = "eulerian" if eul else "principal"
+    conditions = {}
+    for c in CONDITIONS:
+        m, tol = float(f.margins[c][0]), float(f.tolerances[c][0])
+        conditions[c] = {"holds": bool(m >= -tol), "saturated": bool(abs(m) <= tol),
+                         "margin": m, "tolerance": tol, "frame": frame,
+                         "worst_observer": f.observers[c][0]}
+        if c == "DEC":
+            conditions[c]["worst_pair"] = f.dec_pair[0]
+    lam = f.tidal_eigenvalues[0]
+    tidal = {"frame": metric.crew.frame, "eigenvalues": lam,
+             "eigenvectors_frame": f.tidal_vectors[0].T,
+             "body_length_m": metric.crew.body_length_m,
+             "noise_floor_g": float(peak_accel_g(f.tidal_tol[:1, None], metric.length_m,
+                                                  metric.crew.body_length_m)[0])}
+    if np.isfinite(lam).all():
+        acc = float(units.tidal_accel_m_s2(np.abs(lam).max(), metric.length_m,
+                                           metric.crew.body_length_m))
+        tidal["accel_m_s2"], tidal["accel_g"] = acc, float(units.accel_g(acc))
+    else:
+        tidal["accel_m_s2"] = tidal["accel_g"] = None
+        tidal["undefined"] = (f"the {metric.crew.frame} observer is not defined at this event")
+    rho = float(f.rho[0])
+    station = float(units.accel_g(units.proper_accel_m_s2(f.station_accel[0], metric.length_m)))
     return ProbeResult(
         name=metric.name, point=dict(at), g=curv.g[0], einstein=curv.einstein[0],
         ricci_scalar=float(curv.ricci_scalar[0]), kretschmann=float(curv.kretschmann[0]),
         eulerian_energy_density=rho,
         eulerian_energy_density_J_m3=float(units.energy_density_J_m3(rho, metric.length_m)),
-        frame="eulerian" if eulerian_ok[0] else "principal",
-        stress_frame=T[0], tolerance=float(tol[0]),
-        resolved_as_limit=bool(batch.limit[0]), length_m=metric.length_m)
+        frame=frame, stress_frame=f.stress[0], tolerance=float(f.t_tol[0]),
+        resolved_as_limit=bool(batch.limit[0]), length_m=metric.length_m,
+        hawking_ellis_type=TYPE_NAMES[int(f.he_type[0])], conditions=conditions, tidal=tidal,
+        station_accel_g=station)

@@ -40,8 +40,30 @@ def format_probe(r) -> str:
                      f"{fmt(r.length_m)} m per unit)")
     else:
         lines.append("Eulerian energy density n/a (the t = const slice is not spacelike here)")
-    for key, text in r.extras.get("_text", []):
-        lines.append(text)
+    if r.hawking_ellis_type is not None:
+        lines.append(f"Hawking-Ellis type      {r.hawking_ellis_type}")
+    if r.conditions:
+        lines.append(f"Energy conditions, all observers ({r.frame} frame; margin, tolerance):")
+        for c, d in r.conditions.items():
+            verdict = "violated" if not d["holds"] else ("saturated" if d["saturated"] else "holds")
+            obs = ", ".join(f"{v:.4g}" for v in d["worst_observer"])
+            lines.append(f"  {c}  {verdict:<9}  {fmt(d['margin'], 6):>13}  "
+                         f"+-{fmt(d['tolerance'], 2):<9}  worst observer ({obs})")
+    t = r.tidal
+    if t:
+        if t.get("accel_g") is not None:
+            eig = ", ".join(fmt(v, 4) for v in t["eigenvalues"])
+            lines.append(f"Tidal eigenvalues ({t['frame']} frame) {eig}; across "
+                         f"{fmt(t['body_length_m'])} m: {fmt(t['accel_m_s2'], 4)} m/s^2 = "
+                         f"{fmt(t['accel_g'], 4)} g")
+        else:
+            lines.append(f"Tidal tensor: {t.get('undefined', 'undefined here')}")
+    if r.station_accel_g is not None and np.isfinite(r.station_accel_g):
+        lines.append(f"Held at fixed spatial coordinates: proper acceleration "
+                     f"{fmt(r.station_accel_g, 4)} g")
+    if t or r.station_accel_g is not None:
+        from .crew.limits import CAUTION
+        lines.append(CAUTION)
     return "\n".join(lines)
 
 

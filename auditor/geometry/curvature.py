@@ -46,7 +46,8 @@ class Curvature:
     ricci_scalar: np.ndarray  # (N,)
     einstein: np.ndarray   # (N,4,4) G_ab
     kretschmann: np.ndarray   # (N,)
-    scale: np.ndarray      # (N,) size of the cancelling terms of R_abcd
+    scale: np.ndarray      # (N,) size of the cancelling terms of R_abcd (max over components)
+    scale_terms: np.ndarray  # (N,4,4,4,4) that size per component
     kretschmann_scale: np.ndarray  # (N,) size of the terms summed in K
 
     def __len__(self) -> int:
@@ -86,9 +87,9 @@ def curvature_from_raw(g: np.ndarray, dg: np.ndarray, d2g: np.ndarray,
     scale_terms = 0.5 * (np.abs(t1) + np.abs(t2) + np.abs(t3) + np.abs(t4)) \
         + np.einsum("nebc,nead->nabcd", np.abs(gam), np.abs(gam_low)) \
         + np.einsum("nebd,neac->nabcd", np.abs(gam), np.abs(gam_low))
-    scale = scale_terms.reshape(len(g), -1).max(axis=1)
     if extra_abs is not None:
-        scale = scale + extra_abs / np.finfo(float).eps
+        scale_terms = scale_terms + (extra_abs / np.finfo(float).eps)[:, None, None, None, None]
+    scale = scale_terms.reshape(len(g), -1).max(axis=1)
     ricci = np.einsum("nac,nabcd->nbd", ginv, riemann)
     ricci = 0.5 * (ricci + np.swapaxes(ricci, 1, 2))
     rscalar = np.einsum("nbd,nbd->n", ginv, ricci)
@@ -99,4 +100,4 @@ def curvature_from_raw(g: np.ndarray, dg: np.ndarray, d2g: np.ndarray,
     kscale = np.abs(kterms).reshape(len(g), -1).sum(axis=1)
     return Curvature(g=g, ginv=ginv, dg=dg, christoffel=gam, riemann=riemann, ricci=ricci,
                      ricci_scalar=rscalar, einstein=einstein, kretschmann=kretschmann,
-                     scale=scale, kretschmann_scale=kscale)
+                     scale=scale, scale_terms=scale_terms, kretschmann_scale=kscale)
