@@ -179,10 +179,14 @@ class MetricKernel(ScalarKernel):
     """The raw kernel of one metric: g, ∂g and ∂∂g (150 rows)."""
 
 
-def compile_scalars(exprs: Sequence[sp.Expr], coord_syms, param_syms) -> ScalarKernel:
-    """Compile expressions (internal symbols only) to a vectorised kernel."""
-    exprs = [smooth_rewrite(e) for e in exprs]
-    src = _generate(exprs, coord_syms, param_syms)
+def compile_scalars(exprs: Sequence[sp.Expr], coord_syms, param_syms, *,
+                    kind: str = "scalars") -> ScalarKernel:
+    """Compile expressions (internal symbols only) to a vectorised kernel (cached)."""
+    from .cache import cached_source
+    exprs = list(exprs)
+    src = cached_source(f"{kind}:{len(param_syms)}", exprs,
+                        lambda: _generate([smooth_rewrite(e) for e in exprs], coord_syms,
+                                          param_syms), _check_source)
     return ScalarKernel(src, len(exprs), _compile(src))
 
 
@@ -200,7 +204,15 @@ def metric_derivative_exprs(g: sp.MatrixBase, coord_syms) -> list[sp.Expr]:
 
 
 def compile_metric(metric) -> MetricKernel:
-    """Differentiate ``metric.g`` and compile the raw kernel."""
-    exprs = metric_derivative_exprs(metric.g, metric.coord_symbols)
-    src = _generate(exprs, metric.coord_symbols, metric.param_symbols)
+    """Differentiate ``metric.g`` and compile the raw kernel (cached on disk).
+
+    A cache hit skips differentiation and CSE entirely (see :mod:`.cache`).
+    """
+    from .cache import cached_source
+
+    def build():
+        exprs = metric_derivative_exprs(metric.g, metric.coord_symbols)
+        return _generate(exprs, metric.coord_symbols, metric.param_symbols)
+
+    src = cached_source(f"metric:{len(metric.param_symbols)}", [metric.g], build, _check_source)
     return MetricKernel(src, N_RAW, _compile(src))
