@@ -70,6 +70,24 @@ def build_parser() -> argparse.ArgumentParser:
                    help="conditions that decide the exit code (default all four)")
     p.add_argument("--quiet", action="store_true", help="no progress on stderr")
     p.set_defaults(func=_cmd_report)
+
+    p = sub.add_parser("sweep", help="audit a grid of parameter values")
+    p._sub = "sweep"
+    _common(p)
+    p.add_argument("--vary", action="append", default=[], metavar="NAME=START:STOP:COUNT",
+                   help="values of a parameter: START:STOP:COUNT (both ends included) or "
+                        "a,b,c (repeatable; every combination is audited)")
+    p.add_argument("-o", "--output", default="sweep.csv", metavar="CSV",
+                   help="table to write (default sweep.csv)")
+    p.add_argument("--plot", metavar="PATH", help="figure of margins and energy (default: the "
+                   "table's name with .pdf)")
+    p.add_argument("--json", metavar="PATH|-", help="also write the rows as JSON")
+    p.add_argument("--jobs", type=int, default=1, metavar="N", help="processes to use")
+    p.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler")
+    p.add_argument("--require", default="NEC,WEC,SEC,DEC", metavar="NEC,WEC,...",
+                   help="conditions that decide the exit code (default all four)")
+    p.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    p.set_defaults(func=_cmd_sweep)
     return parser
 
 
@@ -137,6 +155,36 @@ def _cmd_report(args) -> int:
         print(f"wrote {args.output}" + (f", {args.latex}" if args.latex else "")
               + (f", {args.json}" if args.json else ""))
     return result.exit_code(require)
+
+
+def _cmd_sweep(args) -> int:
+    import os
+    from .errors import UsageError
+    from .outputs import atomic_write, write_json
+    from .sweep import _journal_path, parse_vary, plot_sweep, sweep
+    require = _require(args.require)
+    if args.jobs < 1:
+        raise UsageError(f"--jobs must be at least 1, got {args.jobs}")
+    metric = _load(args)
+    varies = parse_vary(args.vary, metric)
+    plot = args.plot or os.path.splitext(args.output)[0] + ".pdf"
+    journal = _journal_path(args.output)
+    from .metric import parse_overrides
+    result = sweep(metric, varies, points=args.points, overrides=parse_overrides(args.set),
+                   jobs=args.jobs, dask=args.dask, journal=journal, require=require,
+                   progress=not args.quiet and sys.stderr.isatty())
+    with atomic_write(args.output) as fh:
+        fh.write(result.to_csv())
+    plot_sweep(result, plot)
+    if args.json:
+        write_json(result.to_json(metric), args.json)
+    if journal and os.path.exists(journal):
+        os.unlink(journal)
+    if args.json != "-":
+        print(f"{len(result.rows)} combinations ({result.resumed} resumed) in "
+              f"{result.seconds:.1f} s; wrote {args.output}, {plot}"
+              + (f", {args.json}" if args.json else ""))
+    return result.exit_code()
 
 
 def main(argv=None) -> int:
