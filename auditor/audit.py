@@ -249,8 +249,14 @@ class _Progress:
 
 def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None = None,
           chunk: int = DEFAULT_CHUNK, progress: bool | None = None,
-          refine: bool = True, crew: bool = True) -> AuditResult:
-    """Audit the metric's ``[region]`` (see module docstring)."""
+          refine: bool = True, crew: bool = True, jobs: int = 1,
+          dask: str | None = None) -> AuditResult:
+    """Audit the metric's ``[region]`` (see module docstring).
+
+    ``jobs`` > 1 spreads the chunks over that many processes; ``dask`` (a
+    scheduler address) over an existing Dask cluster. Chunks are evaluated by
+    the same code either way, so the results do not depend on the layout.
+    """
     t0 = time.monotonic()
     if metric.region is None:
         raise UsageError(f"{metric.path}: no [region] table; add one to say where to audit")
@@ -283,38 +289,18 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
         (rng.random(size) < CROSS_CHECK_POINTS / size)
     cross = {c: {"exact": [], "sampled": [], "tol": []} for c in CONDITIONS}
 
-    for start in range(0, size, chunk):
-        stop = min(start + chunk, size)
-        x = grid.events(start, stop)
-        batch = geometry.evaluate(x, metric.parameters)
-        maps["reason"][start:stop] = batch.reason
-        maps["limit"][start:stop] = batch.limit
-        fields = analyse(batch, crew_cfg.frame)
-        if fields is not None:
-            idx = start + np.flatnonzero(batch.ok)
-            for c in CONDITIONS:
-                maps["margin_" + c][idx] = fields.margins[c]
-                maps["tol_" + c][idx] = fields.tolerances[c]
-            maps["he_type"][idx] = fields.he_type
-            maps["rho"][idx] = fields.rho
-            maps["eulerian"][idx] = fields.frame_eulerian
-            w = grid.coordinate_weights(start, stop)[batch.ok] * fields.sqrt_gamma
-            maps["weight"][idx] = np.where(np.isfinite(w), w, 0.0)
-            tidal_eigs[idx] = fields.tidal_eigenvalues
-            maps["tidal_g"][idx] = peak_accel_g(fields.tidal_eigenvalues, metric.length_m,
-                                                crew_cfg.body_length_m)
-            maps["station_g"][idx] = units.accel_g(
-                units.proper_accel_m_s2(fields.station_accel, metric.length_m))
-            maps["tidal_floor_g"][idx] = peak_accel_g(fields.tidal_tol[:, None], metric.length_m,
-                                                      crew_cfg.body_length_m)
-            sel = check_mask[idx]
-            if sel.any():
-                sm = sampled_margins(fields.stress[sel], n_dirs=CROSS_CHECK_DIRECTIONS)
+    bounds = [(a, min(a + chunk, size)) for a in range(0, size, chunk)]
+    for (a, b), part in _chunks(metric, geometry, grid, bounds, check_mask, jobs, dask):
+        for key, arr in part.items():
+            if key == "cross":
                 for c in CONDITIONS:
-                    cross[c]["exact"].append(fields.margins[c][sel])
-                    cross[c]["sampled"].append(np.asarray(getattr(sm, c.lower())))
-                    cross[c]["tol"].append(fields.tolerances[c][sel])
-        bar.update(stop)
+                    for k in ("exact", "sampled", "tol"):
+                        cross[c][k].append(arr[c][k])
+            elif key == "tidal_eigs":
+                tidal_eigs[a:b] = arr
+            else:
+                maps[key][a:b] = arr
+        bar.update(b)
 
     ok = maps["reason"] == 0
     audited = int(ok.sum())
@@ -396,6 +382,105 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
         result.crew = follow(metric, geometry)
     result.seconds = time.monotonic() - t0
     return result
+
+
+def chunk_fields(metric, geometry, grid, start: int, stop: int, check: np.ndarray) -> dict:
+    """Per-event results of grid events start..stop-1 (NaN where excluded)."""
+    n = stop - start
+    crew_cfg = metric.crew
+    nan = lambda: np.full(n, np.nan)
+    out = {"reason": None, "limit": None, "he_type": np.full(n, -1, np.int8), "rho": nan(),
+           "weight": np.zeros(n), "tidal_g": nan(), "eulerian": np.zeros(n, bool),
+           "station_g": nan(), "tidal_floor_g": nan(), "tidal_eigs": np.full((n, 3), np.nan)}
+    for c in CONDITIONS:
+        out["margin_" + c] = nan()
+        out["tol_" + c] = nan()
+    batch = geometry.evaluate(grid.events(start, stop), metric.parameters)
+    out["reason"], out["limit"] = batch.reason, batch.limit
+    fields = analyse(batch, crew_cfg.frame)
+    cross = {c: {"exact": np.zeros(0), "sampled": np.zeros(0), "tol": np.zeros(0)}
+             for c in CONDITIONS}
+    out["cross"] = cross
+    if fields is None:
+        return out
+    idx = np.flatnonzero(batch.ok)
+    for c in CONDITIONS:
+        out["margin_" + c][idx] = fields.margins[c]
+        out["tol_" + c][idx] = fields.tolerances[c]
+    out["he_type"][idx] = fields.he_type
+    out["rho"][idx] = fields.rho
+    out["eulerian"][idx] = fields.frame_eulerian
+    w = grid.coordinate_weights(start, stop)[batch.ok] * fields.sqrt_gamma
+    out["weight"][idx] = np.where(np.isfinite(w), w, 0.0)
+    out["tidal_eigs"][idx] = fields.tidal_eigenvalues
+    out["tidal_g"][idx] = peak_accel_g(fields.tidal_eigenvalues, metric.length_m,
+                                       crew_cfg.body_length_m)
+    out["station_g"][idx] = units.accel_g(units.proper_accel_m_s2(fields.station_accel,
+                                                                  metric.length_m))
+    out["tidal_floor_g"][idx] = peak_accel_g(fields.tidal_tol[:, None], metric.length_m,
+                                             crew_cfg.body_length_m)
+    sel = check[idx]
+    if sel.any():
+        sm = sampled_margins(fields.stress[sel], n_dirs=CROSS_CHECK_DIRECTIONS)
+        for c in CONDITIONS:
+            cross[c] = {"exact": fields.margins[c][sel],
+                        "sampled": np.asarray(getattr(sm, c.lower())),
+                        "tol": fields.tolerances[c][sel]}
+    return out
+
+
+_STATE: dict = {}
+
+
+def _chunk_in_worker(a, b, check):
+    return chunk_fields(_STATE["metric"], _STATE["geometry"], _STATE["grid"], a, b, check)
+
+
+def _chunk_on_dask(path, sha256, parameters, grid, a, b, check):
+    """Dask task: load and compile once per worker process (cached kernels), then evaluate."""
+    from .metric import load_metric
+    if _STATE.get("dask_key") != (path, sha256):
+        metric = load_metric(path)
+        if metric.sha256 != sha256:
+            raise UsageError(f"{path} on the Dask worker differs from the file audited here")
+        _STATE.update(dask_key=(path, sha256), dask_metric=metric,
+                      dask_geometry=Geometry(metric))
+    metric = _STATE["dask_metric"].with_parameters(**parameters)
+    return chunk_fields(metric, _STATE["dask_geometry"], grid, a, b, check)
+
+
+def _chunks(metric, geometry, grid, bounds, check_mask, jobs, dask):
+    """Yield ((start, stop), fields) for every chunk, in order, however they are run."""
+    if dask:
+        try:
+            from distributed import Client
+        except ImportError as exc:
+            raise UsageError("--dask needs Dask's distributed scheduler: "
+                             "pip install 'auditor[dask]' (or pip install distributed)") from exc
+        try:
+            client = Client(dask, timeout="10s")
+        except (OSError, TimeoutError) as exc:
+            raise UsageError(f"--dask: cannot reach a Dask scheduler at {dask} ({exc})") from exc
+        try:
+            futs = [client.submit(_chunk_on_dask, metric.path, metric.sha256,
+                                  dict(metric.parameters), grid, a, b, check_mask[a:b],
+                                  pure=False) for a, b in bounds]
+            for (a, b), fut in zip(bounds, futs):
+                yield (a, b), fut.result()
+        finally:
+            client.close()
+        return
+    if jobs > 1 and len(bounds) > 1:
+        import multiprocessing as mp
+        from concurrent.futures import ProcessPoolExecutor
+        _STATE.update(metric=metric, geometry=geometry, grid=grid)   # inherited by fork
+        with ProcessPoolExecutor(max_workers=jobs, mp_context=mp.get_context("fork")) as pool:
+            futs = [pool.submit(_chunk_in_worker, a, b, check_mask[a:b]) for a, b in bounds]
+            for (a, b), fut in zip(bounds, futs):
+                yield (a, b), fut.result()
+        return
+    for a, b in bounds:
+        yield (a, b), chunk_fields(metric, geometry, grid, a, b, check_mask[a:b])
 
 
 def _regions(grid, violating, m, maps, integrate, spatial):

@@ -57,6 +57,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--require", default="NEC,WEC,SEC,DEC", metavar="NEC,WEC,...",
                    help="conditions that decide the exit code (default all four)")
     p.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    p.add_argument("--jobs", type=int, default=1, metavar="N", help="processes to use")
+    p.add_argument("--dask", metavar="ADDRESS", help="spread the grid over a Dask scheduler")
     p.set_defaults(func=_cmd_check)
 
     p = sub.add_parser("report", help="audit and write the PDF report")
@@ -129,8 +131,12 @@ def _cmd_check(args) -> int:
     from .outputs import write_json
     from .textout import format_audit
     require = _require(args.require)
+    if args.jobs < 1:
+        from .errors import UsageError
+        raise UsageError(f"--jobs must be at least 1, got {args.jobs}")
     metric = _load(args)
-    result = audit(metric, progress=False if args.quiet else None)
+    result = audit(metric, progress=False if args.quiet else None, jobs=args.jobs,
+                   dask=args.dask)
     if args.json:
         write_json(result.to_json(), args.json)
     if args.json != "-":
