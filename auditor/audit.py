@@ -104,12 +104,15 @@ class EnergyBudget:
     total: float | list
     negative_total: float | list
     length_m: float
+    tolerance: float | list = 0.0   # ∫ (round-off of rho_E) dV: totals below it are zero
 
     def to_json(self) -> dict:
         conv = lambda v, f: [float(f(x, self.length_m)) for x in v] if isinstance(v, list) \
             else float(f(v, self.length_m))
         return {
             "eulerian_total": self.total, "eulerian_negative_total": self.negative_total,
+            "eulerian_tolerance": self.tolerance,
+            "eulerian_tolerance_kg": conv(self.tolerance, units.energy_kg),
             "eulerian_total_J": conv(self.total, units.energy_J),
             "eulerian_total_kg": conv(self.total, units.energy_kg),
             "eulerian_negative_total_J": conv(self.negative_total, units.energy_J),
@@ -277,7 +280,7 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
     maps = {"reason": np.zeros(size, np.int8), "he_type": np.full(size, -1, np.int8),
             "rho": nan(), "weight": np.zeros(size), "tidal_g": nan(),
             "eulerian": np.zeros(size, bool), "limit": np.zeros(size, bool),
-            "station_g": nan(), "tidal_floor_g": nan()}
+            "station_g": nan(), "tidal_floor_g": nan(), "tol_T": nan()}
     for c in CONDITIONS:
         maps["margin_" + c] = nan()
         maps["tol_" + c] = nan()
@@ -363,7 +366,8 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
         rho = np.nan_to_num(maps["rho"])
         energy = EnergyBudget(total=integrate(rho, eul_ok),
                               negative_total=integrate(np.minimum(rho, 0.0), eul_ok),
-                              length_m=metric.length_m)
+                              length_m=metric.length_m,
+                              tolerance=integrate(np.nan_to_num(maps["tol_T"]), eul_ok))
 
     tidal = _tidal_summary(grid, maps, tidal_eigs, ok, crew_cfg)
     types = {"vacuum": 0, "I": 0, "II": 0, "III": 0, "IV": 0}
@@ -391,7 +395,8 @@ def chunk_fields(metric, geometry, grid, start: int, stop: int, check: np.ndarra
     nan = lambda: np.full(n, np.nan)
     out = {"reason": None, "limit": None, "he_type": np.full(n, -1, np.int8), "rho": nan(),
            "weight": np.zeros(n), "tidal_g": nan(), "eulerian": np.zeros(n, bool),
-           "station_g": nan(), "tidal_floor_g": nan(), "tidal_eigs": np.full((n, 3), np.nan)}
+           "station_g": nan(), "tidal_floor_g": nan(), "tidal_eigs": np.full((n, 3), np.nan),
+           "tol_T": nan()}
     for c in CONDITIONS:
         out["margin_" + c] = nan()
         out["tol_" + c] = nan()
@@ -409,6 +414,7 @@ def chunk_fields(metric, geometry, grid, start: int, stop: int, check: np.ndarra
         out["tol_" + c][idx] = fields.tolerances[c]
     out["he_type"][idx] = fields.he_type
     out["rho"][idx] = fields.rho
+    out["tol_T"][idx] = fields.t_tol
     out["eulerian"][idx] = fields.frame_eulerian
     w = grid.coordinate_weights(start, stop)[batch.ok] * fields.sqrt_gamma
     out["weight"][idx] = np.where(np.isfinite(w), w, 0.0)

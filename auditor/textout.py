@@ -117,10 +117,16 @@ def format_audit(res, require=("NEC", "WEC", "SEC", "DEC")) -> str:
         if isinstance(tot, list):
             lines.append(f"Eulerian energy per time sample: {', '.join(fmt(v, 4) for v in tot)}")
         else:
-            lines.append(f"Eulerian energy  total {fmt(tot, 4)} ({fmt(e['eulerian_total_J'], 3)} J, "
-                         f"{fmt(e['eulerian_total_kg'], 3)} kg); negative part "
-                         f"{fmt(e['eulerian_negative_total'], 4)} "
-                         f"({fmt(e['eulerian_negative_total_kg'], 3)} kg)")
+            tol = e["eulerian_tolerance"]
+            if abs(tot) <= tol and abs(e["eulerian_negative_total"]) <= tol:
+                lines.append(f"Eulerian energy  zero within round-off (|E| <= {fmt(tol, 2)}, "
+                             f"{fmt(e['eulerian_tolerance_kg'], 2)} kg)")
+            else:
+                lines.append(f"Eulerian energy  total {fmt(tot, 4)} ({fmt(e['eulerian_total_J'], 3)} J, "
+                             f"{fmt(e['eulerian_total_kg'], 3)} kg); negative part "
+                             f"{fmt(e['eulerian_negative_total'], 4)} "
+                             f"({fmt(e['eulerian_negative_total_kg'], 3)} kg); round-off "
+                             f"{fmt(tol, 2)}")
     types = ", ".join(f"{k} {v}" for k, v in res.he_type_counts.items() if v)
     lines.append(f"Hawking-Ellis types: {types}")
     t = res.tidal

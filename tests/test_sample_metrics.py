@@ -35,6 +35,7 @@ EVENTS = {
     "tanh_wall_bubble": "t=0,x=0.3,y=1,z=0",
     "morris_thorne_wormhole": "t=0,l=0,theta=pi/2,phi=0",
     "plane_wave_brinkmann": "t=0,x=1,y=0.5,z=0.2",
+    "kerr_boyer_lindquist": "t=0,r=3,theta=1,phi=0.2",
 }
 
 #: Keys `auditor probe --json` must write (cli-contract.md, "probe JSON"); the
