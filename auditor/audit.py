@@ -40,7 +40,7 @@ __all__ = ["audit", "AuditResult", "ConditionSummary", "ViolatingRegion", "Energ
 #: Regions listed per condition (largest violations first); the count is always given.
 MAX_REGIONS = 50
 #: Events on which the sampled-observer cross-check runs (all, on smaller grids).
-CROSS_CHECK_POINTS = 2048
+CROSS_CHECK_POINTS = 1024
 #: Directions of the cross-check (DEC samples their ordered pairs).
 CROSS_CHECK_DIRECTIONS = 200
 #: Zoom rounds and samples per axis of the local refinement of minimum margins.

@@ -31,12 +31,15 @@ _EPS = np.finfo(float).eps
 
 def frame_scale(scale_terms: np.ndarray, E: np.ndarray) -> np.ndarray:
     """max over â,b̂,ĉ,d̂ of Ŝ = |e_â^μ||e_b̂^ν||e_ĉ^ρ||e_d̂^σ| S_μνρσ (N,)."""
-    A = np.abs(E)
-    s = np.einsum("ndm,nabcm->nabcd", A, scale_terms)
-    s = np.einsum("ncm,nabmd->nabcd", A, s)
-    s = np.einsum("nbm,namcd->nabcd", A, s)
-    s = np.einsum("nam,nmbcd->nabcd", A, s)
-    return s.reshape(len(E), -1).max(axis=1)
+    n = len(E)
+    At = np.swapaxes(np.abs(E), 1, 2)
+    s = scale_terms
+    # Contract the last index with |e| and rotate it to the front, four times
+    # (only the maximum is kept, so the final index order does not matter).
+    for _ in range(4):
+        s = (np.ascontiguousarray(s).reshape(n, 64, 4) @ At).reshape(n, 4, 4, 4, 4)
+        s = s.transpose(0, 4, 1, 2, 3)
+    return s.reshape(n, -1).max(axis=1)
 
 
 def component_tolerance(scale_terms: np.ndarray, E: np.ndarray) -> np.ndarray:

@@ -70,34 +70,43 @@ def curvature_from_raw(g: np.ndarray, dg: np.ndarray, d2g: np.ndarray,
     ``extra_abs`` adds an absolute uncertainty of the Riemann components per
     point (used where derivatives were obtained as limits).
     """
+    n = len(g)
     ginv = np.linalg.inv(g)
     ginv = 0.5 * (ginv + np.swapaxes(ginv, 1, 2))
+    # Contractions are batched matrix products (matmul) over reshaped index
+    # pairs; the einsum spelling of each is given beside it.
     # Γ_abc = ½(∂_b g_ac + ∂_c g_ab − ∂_a g_bc); dg[n,c,a,b] = ∂_c g_ab
-    gam_low = 0.5 * (np.einsum("nbac->nabc", dg) + np.einsum("ncab->nabc", dg) - dg)
-    gam = np.einsum("nad,ndbc->nabc", ginv, gam_low)
-    # Second-derivative part: ½(g_ad,bc + g_bc,ad − g_bd,ac − g_ac,bd)
-    # with d2g[n,c,d,a,b] = ∂_c∂_d g_ab.
-    t1 = np.einsum("nbcad->nabcd", d2g)      # ∂_b∂_c g_ad
-    t2 = np.einsum("nadbc->nabcd", d2g)      # ∂_a∂_d g_bc
-    t3 = np.einsum("nacbd->nabcd", d2g)      # ∂_a∂_c g_bd
-    t4 = np.einsum("nbdac->nabcd", d2g)      # ∂_b∂_d g_ac
-    q1 = np.einsum("nebc,nead->nabcd", gam, gam_low)   # Γ^e_bc Γ_ead
-    q2 = np.einsum("nebd,neac->nabcd", gam, gam_low)   # Γ^e_bd Γ_eac
+    gam_low = 0.5 * (dg.transpose(0, 2, 1, 3) + dg.transpose(0, 2, 3, 1) - dg)
+    gam = (ginv @ gam_low.reshape(n, 4, 16)).reshape(n, 4, 4, 4)      # g^ad Γ_dbc
+    # Second-derivative part ½(g_ad,bc + g_bc,ad − g_bd,ac − g_ac,bd), d2g[n,c,d,a,b] = ∂_c∂_d g_ab
+    t1 = d2g.transpose(0, 3, 1, 2, 4)        # nbcad->nabcd: ∂_b∂_c g_ad
+    t2 = d2g.transpose(0, 1, 3, 4, 2)        # nadbc->nabcd: ∂_a∂_d g_bc
+    t3 = d2g.transpose(0, 1, 3, 2, 4)        # nacbd->nabcd: ∂_a∂_c g_bd
+    t4 = d2g.transpose(0, 3, 1, 4, 2)        # nbdac->nabcd: ∂_b∂_d g_ac
+    # P[n, bc, ad] = Σ_e Γ^e_bc Γ_ead; then q1 = Γ^e_bc Γ_ead, q2 = Γ^e_bd Γ_eac
+    m1, m2 = gam.reshape(n, 4, 16), gam_low.reshape(n, 4, 16)
+    P = (np.swapaxes(m1, 1, 2) @ m2).reshape(n, 4, 4, 4, 4)           # [b,c,a,d]
+    Pabs = (np.swapaxes(np.abs(m1), 1, 2) @ np.abs(m2)).reshape(n, 4, 4, 4, 4)
+    q1, q2 = P.transpose(0, 3, 1, 2, 4), P.transpose(0, 3, 1, 4, 2)
     riemann = 0.5 * (t1 + t2 - t3 - t4) + q1 - q2
     scale_terms = 0.5 * (np.abs(t1) + np.abs(t2) + np.abs(t3) + np.abs(t4)) \
-        + np.einsum("nebc,nead->nabcd", np.abs(gam), np.abs(gam_low)) \
-        + np.einsum("nebd,neac->nabcd", np.abs(gam), np.abs(gam_low))
+        + Pabs.transpose(0, 3, 1, 2, 4) + Pabs.transpose(0, 3, 1, 4, 2)
     if extra_abs is not None:
         scale_terms = scale_terms + (extra_abs / np.finfo(float).eps)[:, None, None, None, None]
-    scale = scale_terms.reshape(len(g), -1).max(axis=1)
-    ricci = np.einsum("nac,nabcd->nbd", ginv, riemann)
+    scale = scale_terms.reshape(n, -1).max(axis=1)
+    # Ricci R_bd = g^ac R_abcd  (nac,nabcd->nbd)
+    rt = riemann.transpose(0, 2, 4, 1, 3).reshape(n, 16, 16)
+    ricci = (rt @ ginv.reshape(n, 16, 1)).reshape(n, 4, 4)
     ricci = 0.5 * (ricci + np.swapaxes(ricci, 1, 2))
-    rscalar = np.einsum("nbd,nbd->n", ginv, ricci)
+    rscalar = (ginv * ricci).reshape(n, -1).sum(axis=1)
     einstein = ricci - 0.5 * rscalar[:, None, None] * g
-    rup = np.einsum("nae,nbf,nefcd->nabcd", ginv, ginv, riemann)
-    kterms = np.einsum("nabcd,ncdab->nabcd", rup, rup)
-    kretschmann = kterms.reshape(len(g), -1).sum(axis=1)
-    kscale = np.abs(kterms).reshape(len(g), -1).sum(axis=1)
+    # R^ab_cd = g^ae g^bf R_efcd (nae,nbf,nefcd->nabcd), then K = R^ab_cd R^cd_ab
+    x = (ginv @ riemann.reshape(n, 4, 64)).reshape(n, 4, 4, 16)
+    y = (ginv @ x.transpose(0, 2, 1, 3).reshape(n, 4, 64)).reshape(n, 4, 4, 16)
+    rup = y.transpose(0, 2, 1, 3).reshape(n, 16, 16)
+    kterms = rup * np.swapaxes(rup, 1, 2)
+    kretschmann = kterms.reshape(n, -1).sum(axis=1)
+    kscale = np.abs(kterms).reshape(n, -1).sum(axis=1)
     return Curvature(g=g, ginv=ginv, dg=dg, christoffel=gam, riemann=riemann, ricci=ricci,
                      ricci_scalar=rscalar, einstein=einstein, kretschmann=kretschmann,
                      scale=scale, scale_terms=scale_terms, kretschmann_scale=kscale)
