@@ -43,6 +43,11 @@ MAX_REGIONS = 50
 CROSS_CHECK_POINTS = 1024
 #: Directions of the cross-check (DEC samples their ordered pairs).
 CROSS_CHECK_DIRECTIONS = 200
+#: A violation "core" is where the margin is below this fraction of the minimum
+#: margin: smooth walls (tanh, Gaussian) violate by exponentially small amounts far
+#: out, so the plain violating volume can be the whole box; the core is where the
+#: violation is within two orders of magnitude of the worst (our convention).
+CORE_FRACTION = 0.01
 #: Zoom rounds and samples per axis of the local refinement of minimum margins.
 REFINE_LEVELS, REFINE_PER_AXIS = 5, 7
 #: Largest grid accepted in one audit (events): beyond it memory for the maps
@@ -74,6 +79,7 @@ class ConditionSummary:
     regions: tuple
     region_count: int
     cross_check: dict
+    core_violating_volume: float | list | None = None   # where margin < CORE_FRACTION·min
 
     def to_json(self, spatial: bool) -> dict:
         out = {
@@ -89,6 +95,8 @@ class ConditionSummary:
         if spatial:
             out["violating_volume"] = self.violating_volume
             out["volume_integral"] = self.volume_integral
+            out["core_violating_volume"] = self.core_violating_volume
+            out["core_fraction"] = CORE_FRACTION
         for r in self.regions:
             item = {"volume": r.volume, "min_margin": r.min_margin,
                     "eulerian_energy": r.eulerian_energy, "worst_point": r.worst_point,
@@ -357,7 +365,9 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
             refined_min_margin=refined_m, refined_worst_point=refined_pt,
             volume_integral=integrate(np.minimum(np.nan_to_num(m), 0.0), violating)
             if spatial else None,
-            regions=tuple(summary_regions), region_count=n_regions, cross_check=cross_check)
+            regions=tuple(summary_regions), region_count=n_regions, cross_check=cross_check,
+            core_violating_volume=integrate(np.ones(size), violating & (
+                np.nan_to_num(m) < CORE_FRACTION * float(m[worst]))) if spatial else None)
         maps["cross_" + c] = cross[c]
 
     energy = None

@@ -94,7 +94,8 @@ def format_audit(res, require=("NEC", "WEC", "SEC", "DEC")) -> str:
                  + (f"; {res.non_eulerian_points} outside the Eulerian frame"
                     if res.non_eulerian_points else ""))
     lines.append("")
-    head = f"{'':4}{'verdict':<11}{'violating':>10}{'volume':>11}{'min margin':>12}{'refined':>12}  worst event"
+    head = (f"{'':4}{'verdict':<11}{'violating':>10}{'volume':>11}{'core vol':>10}"
+            f"{'min margin':>12}{'refined':>12}  worst event")
     lines.append(head)
     for c, s in res.conditions.items():
         if s.holds:
@@ -105,9 +106,14 @@ def format_audit(res, require=("NEC", "WEC", "SEC", "DEC")) -> str:
             verdict += "*"
         vol = s.violating_volume
         vol = fmt(sum(vol) if isinstance(vol, list) else vol, 3) if vol is not None else "-"
-        lines.append(f"{c:<4}{verdict:<11}{100 * s.violating_fraction:>9.2f}%{vol:>11}"
+        core = s.core_violating_volume
+        core = fmt(sum(core) if isinstance(core, list) else core, 3) \
+            if core is not None and not s.holds else "-"
+        lines.append(f"{c:<4}{verdict:<11}{100 * s.violating_fraction:>9.2f}%{vol:>11}{core:>10}"
                      f"{fmt(s.min_margin, 4):>12}{fmt(s.refined_min_margin, 4):>12}  "
                      f"{_pt(s.refined_worst_point or s.worst_point)}")
+    lines.append("volume: proper volume of violating events; core vol: where the margin is "
+                 "below 1% of the minimum")
     if any(c not in require for c in res.conditions):
         lines.append("* not required by --require")
     lines.append("")
