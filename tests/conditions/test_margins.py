@@ -356,8 +356,8 @@ def test_against_naive_optimiser(rng):
             # so 1e-9 relative bounds both.
             close.append((cond, ref[cond] - ex[cond][i] <= 1e-9 * scale[i]))
     # NEC/WEC/SEC have few local minima on a 2-sphere or 3-ball: 16 starts in
-    # randomly oriented charts found the global one in every case of 80 seeds
-    # during development (10 starts missed it about once in 40 seeds). The
+    # randomly oriented charts found the global one in every case of 40 seeds
+    # during development (10 starts missed it in 2 runs of 80). The
     # 4-dimensional DEC landscape can trap every start (seen in development),
     # so there the naive optimiser need only agree in most cases; the other
     # direction is asserted above for every case.
