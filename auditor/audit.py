@@ -81,7 +81,7 @@ class ConditionSummary:
     cross_check: dict
     core_violating_volume: float | list | None = None   # where margin < CORE_FRACTION·min
 
-    def to_json(self, spatial: bool) -> dict:
+    def to_json(self, spatial: bool, length_m: float | None = None) -> dict:
         out = {
             "holds": self.holds, "saturated_fraction": self.saturated_fraction,
             "violating_fraction": self.violating_fraction,
@@ -101,6 +101,12 @@ class ConditionSummary:
             item = {"volume": r.volume, "min_margin": r.min_margin,
                     "eulerian_energy": r.eulerian_energy, "worst_point": r.worst_point,
                     "points": r.points}
+            if r.eulerian_energy is not None and length_m is not None:
+                e = r.eulerian_energy
+                conv = (lambda f: [float(f(v, length_m)) for v in e]) if isinstance(e, list) \
+                    else (lambda f: float(f(e, length_m)))
+                item["eulerian_energy_J"] = conv(units.energy_J)
+                item["eulerian_energy_kg"] = conv(units.energy_kg)
             out["regions"].append(item)
         return out
 
@@ -225,7 +231,7 @@ class AuditResult:
             "resolved_as_limit": self.resolved_as_limit,
             "non_eulerian_points": self.non_eulerian_points,
             "hawking_ellis_types": dict(self.he_type_counts),
-            "conditions": {c: s.to_json(self.grid.spatial_sampled)
+            "conditions": {c: s.to_json(self.grid.spatial_sampled, m.length_m)
                            for c, s in self.conditions.items()},
             "tidal": self.tidal.to_json(),
         }

@@ -9,8 +9,10 @@
     │   ├── UsageError            bad command-line usage (--at, --set, --vary ...)
     │   └── PointError            an event that cannot be audited (singular,
     │                             degenerate, not Lorentzian)
-    └── NoAuditablePointError     a region in which every point was excluded
-                                  (also exit code 2)
+    ├── NoAuditablePointError     a region in which every point was excluded
+    │                             (also exit code 2)
+    └── ReportError               the report could not be drawn or rendered
+                                  (PDF stack, templates; exit code 2)
 
 Library errors (SymPy, SciPy, WeasyPrint, OS errors) are translated at the
 boundary with ``raise ... from`` so that the CLI prints one line and never a
@@ -27,6 +29,7 @@ __all__ = [
     "UsageError",
     "PointError",
     "NoAuditablePointError",
+    "ReportError",
 ]
 
 
@@ -111,6 +114,10 @@ class NoAuditablePointError(AuditorError):
 
 
 _CARET_WIDTH = 100
+
+
+class ReportError(AuditorError):
+    """The report could not be drawn or rendered (PDF stack, templates)."""
 
 
 def _one_line(text: str, limit: int | None = 120) -> str:

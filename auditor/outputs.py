@@ -57,6 +57,10 @@ def atomic_write(path: str, mode: str = "w"):
     try:
         with os.fdopen(fd, mode) as fh:
             yield fh
+        # mkstemp creates 0600; give the file the permissions a plain open() would.
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
         os.replace(tmp, path)
     except BaseException:
         try:
