@@ -18,6 +18,7 @@ Usable from a notebook::
 
 from __future__ import annotations
 
+import os
 import sys
 import time
 from dataclasses import dataclass, field
@@ -50,6 +51,8 @@ CROSS_CHECK_DIRECTIONS = 200
 CORE_FRACTION = 0.01
 #: Zoom rounds and samples per axis of the local refinement of minimum margins.
 REFINE_LEVELS, REFINE_PER_AXIS = 5, 7
+#: Memory held per event by the result maps (about 25 float64/int8 arrays), bytes.
+BYTES_PER_EVENT = 200
 #: Largest grid accepted in one audit (events): beyond it memory for the maps
 #: of results exceeds a few GiB.
 MAX_GRID_POINTS = 30_000_000
@@ -285,6 +288,12 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
     if size > MAX_GRID_POINTS:
         raise UsageError(f"the region has {size} events, more than the {MAX_GRID_POINTS} "
                          "one audit accepts; lower region.points or --points")
+    need = size * BYTES_PER_EVENT
+    avail = _available_memory()
+    if avail is not None and need > 0.8 * avail:
+        raise UsageError(f"the region has {size} events; its result maps need about "
+                         f"{need / 2**30:.1f} GiB but {avail / 2**30:.1f} GiB are available; "
+                         "lower region.points or --points")
     if progress is None:
         progress = sys.stderr.isatty() and size > 20_000
     bar = _Progress(size, progress)
@@ -377,8 +386,8 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
         maps["cross_" + c] = cross[c]
 
     energy = None
-    if spatial:
-        eul_ok = ok & np.isfinite(maps["rho"])
+    eul_ok = ok & np.isfinite(maps["rho"])
+    if spatial and eul_ok.any():   # Eulerian-only output: absent where no slice is spacelike
         rho = np.nan_to_num(maps["rho"])
         energy = EnergyBudget(total=integrate(rho, eul_ok),
                               negative_total=integrate(np.minimum(rho, 0.0), eul_ok),
@@ -402,6 +411,30 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
         result.crew = follow(metric, geometry)
     result.seconds = time.monotonic() - t0
     return result
+
+
+def _available_memory() -> int | None:
+    """Bytes this process may still use: MemAvailable, capped by an address-space
+    limit (ulimit -v) when one is set; None where neither can be read."""
+    limits = []
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    limits.append(int(line.split()[1]) * 1024)
+                    break
+    except (OSError, ValueError):
+        pass
+    try:
+        import resource
+        soft, _ = resource.getrlimit(resource.RLIMIT_AS)
+        if soft != resource.RLIM_INFINITY:
+            with open("/proc/self/statm") as fh:
+                used = int(fh.read().split()[0]) * os.sysconf("SC_PAGE_SIZE")
+            limits.append(max(0, soft - used))
+    except (ImportError, OSError, ValueError):
+        pass
+    return min(limits) if limits else None
 
 
 def chunk_fields(metric, geometry, grid, start: int, stop: int, check: np.ndarray) -> dict:

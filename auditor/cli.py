@@ -193,8 +193,30 @@ def _cmd_sweep(args) -> int:
     return result.exit_code()
 
 
+class _Terminated(BaseException):
+    """SIGTERM, raised where the process is so that atomic writes clean up."""
+
+
+def _terminate_cleanly() -> None:
+    """Turn SIGTERM into an exception so that partial outputs are removed (atomic
+    writes unlink their temporary file on any exception); exit code 143 = 128 + 15."""
+    import signal
+    import threading
+    if threading.current_thread() is not threading.main_thread():
+        return
+
+    def handler(signum, frame):
+        raise _Terminated
+
+    try:
+        signal.signal(signal.SIGTERM, handler)
+    except (ValueError, OSError):
+        pass
+
+
 def main(argv=None) -> int:
     parser = build_parser()
+    _terminate_cleanly()
     argv = sys.argv[1:] if argv is None else list(argv)
     args = parser.parse_args(argv)
     args.argv = argv
@@ -207,6 +229,9 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         sys.stderr.write("auditor: interrupted; no partial output was written\n")
         return 130
+    except _Terminated:
+        sys.stderr.write("auditor: terminated; no partial output was written\n")
+        return 143
     except BrokenPipeError:
         return 0
     except Exception as exc:  # a bug: still one line, unless debugging

@@ -49,7 +49,7 @@ def eulerian(g: np.ndarray, ginv: np.ndarray):
     ok = gtt < 0
     with np.errstate(invalid="ignore", divide="ignore"):
         lapse = 1.0 / np.sqrt(-gtt)
-    e0 = -lapse[:, None] * ginv[:, 0, :]
+        e0 = -lapse[:, None] * ginv[:, 0, :]
     axes = [np.tile(np.eye(4)[i], (n_pts, 1)) for i in (1, 2, 3)]
     legs = _gram_schmidt(g, [e0], axes)
     E = np.stack(legs, axis=1)

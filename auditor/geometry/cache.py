@@ -128,13 +128,18 @@ def store_source(key: str, source: str) -> None:
     if folder is None:
         return
     text = f"{_HEADER}{_mac(_secret(folder), source)}\n{source}"
+    tmp = None
     try:
         fd, tmp = tempfile.mkstemp(dir=folder, prefix=".kernel-", suffix=".part")
         with os.fdopen(fd, "w") as fh:
             fh.write(text)
         os.replace(tmp, folder / f"{key}.py")
     except OSError:
-        pass
+        if tmp is not None:
+            try:
+                os.unlink(tmp)
+            except OSError:
+                pass
 
 
 def cached_source(kind: str, key_exprs, build: Callable[[], str],

@@ -75,6 +75,13 @@ class StableSech(sp.Function):
 
 
 class _KernelPrinter(NumPyPrinter):
+    def _print_Integer(self, expr):
+        # Beyond 2**53 a Python int would make NumPy build object arrays; a float
+        # literal is what the double-precision kernel computes with anyway.
+        if abs(int(expr)) > 2**53:
+            return repr(float(expr))
+        return super()._print_Integer(expr)
+
     def _print_StableTanh(self, expr):
         return f"numpy.tanh({self._print(expr.args[0])})"
 
@@ -100,7 +107,7 @@ def smooth_rewrite(expr: sp.Expr) -> sp.Expr:
 
 _ALLOWED_NAME = re.compile(r"^(_c[0-3]|_p\d+|_t\d+|out|numpy|x|p|kernel)$")
 _NUMPY_ATTRS = {"sqrt", "exp", "log", "sin", "cos", "tan", "arcsin", "arccos", "arctan",
-                "arctan2", "sinh", "cosh", "tanh", "arcsinh", "arccosh", "arctanh", "pi",
+                "arctan2", "sinh", "cosh", "tanh", "arcsinh", "arccosh", "arctanh", "pi", "e",
                 "errstate", "empty", "float64"}
 
 

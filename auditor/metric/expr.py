@@ -183,6 +183,12 @@ def parse_expression(text: str, names: Mapping[str, sp.Expr], *,
     if expr.has(sp.I, sp.zoo, sp.oo, sp.nan) or expr.has(-sp.oo):
         fail("expression has a constant part that is not a finite real number",
              None, "check square roots and logarithms of negative or zero constants")
+    if expr.has(sp.Abs, sp.sign, sp.Heaviside, sp.DiracDelta, sp.Piecewise, sp.Min, sp.Max,
+                sp.floor, sp.ceiling):
+        fail("expression simplifies to a function with a kink (sqrt(x**2) is |x|), which "
+             "curvature cannot differentiate", None,
+             "write the quantity without the square root of a square, e.g. x instead of "
+             "sqrt(x**2)")
     return expr
 
 
