@@ -290,6 +290,7 @@ class _Loader:
         g_int = sp.ImmutableMatrix(g_expanded.xreplace(internal))
         lapse = None if lapse_disp is None else lapse_disp.xreplace(expansion).xreplace(internal)
         self.check_internal(g_int, set(coord_syms) | set(param_syms))
+        self.check_finite_after_defines(g_int, lapse, coords)
 
         region = None
         if "region" in doc:
@@ -304,6 +305,21 @@ class _Loader:
             form=form, metric_text=metric_text, lapse=lapse, length_m=length_m,
             summary=summary.strip(), source=source.strip(), path=self.path, sha256=self.sha,
             region=region, crew=crew)
+
+    def check_finite_after_defines(self, g, lapse, coords):
+        """Substituting [define] helpers can fold a constant to infinity or a complex
+        number (u = "1" in atanh(u)); refuse that here, as for a literal constant."""
+        bad = (sp.zoo, sp.nan, sp.I, sp.oo, -sp.oo)
+        for a in range(4):
+            for b in range(a, 4):
+                if g[a, b].has(*bad):
+                    self.fail(f"component g[{coords[a]} {coords[b]}] has a constant part that is "
+                              "not a finite real number once the [define] helpers are "
+                              "substituted (check square roots, logarithms and inverse "
+                              "functions of constants)", "metric")
+        if lapse is not None and lapse.has(*bad):
+            self.fail("the lapse has a constant part that is not a finite real number once the "
+                      "[define] helpers are substituted", "metric.adm.lapse")
 
     def check_internal(self, g, allowed):
         stray = g.free_symbols - allowed
