@@ -58,7 +58,7 @@ class _Solver:
             name = next((n for n, s in self.metric.user_symbols.items() if s == e), None)
             if name in self.defs:
                 if name not in self.memo:
-                    self.memo[name] = self.dim(sp.sympify(self.defs[name].display))
+                    self.memo[name] = self.dim(self.defs[name].display)
                 return self.memo[name]
             raise _Unknown(str(e))
         if e.is_Add:
@@ -99,7 +99,7 @@ class _Solver:
             for b in range(a, 4):
                 if g[a, b] == 0:
                     continue
-                v, c = self.dim(sp.sympify(g[a, b]))
+                v, c = self.dim(g[a, b])
                 v = list(v)
                 v[a] += 1
                 v[b] += 1

@@ -247,7 +247,7 @@ def typeset_line_element(metric, width: float = COLUMN_PT) -> Equation:
     g = metric.g_display
     for a in range(4):
         for b in range(a, 4):
-            c = sp.sympify(g[a, b]) * (1 if a == b else 2)
+            c = g[a, b] * (1 if a == b else 2)
             if c == 0:
                 continue
             tail = f"{diffs[a]}^{{2}}" if a == b else rf"{diffs[a]}\,{diffs[b]}"
@@ -263,7 +263,7 @@ def typeset_definition(metric, definition, width: float = COLUMN_PT) -> Equation
     """``name = expression`` of one ``[define]`` entry, definitions kept as names."""
     p = _printer(metric)
     lhs = _symbol_names([metric.user_symbols[definition.name]])[metric.user_symbols[definition.name]]
-    expr = sp.sympify(definition.display)
+    expr = definition.display
     if isinstance(expr, sp.Add):
         terms = list(p._as_ordered_terms(expr))
         terms = [t for t in terms if not t.could_extract_minus_sign()] + \

@@ -229,7 +229,7 @@ def test_morris_thorne_static_frame(geometry_cache, rng, b0, a):
 
 def _alcubierre_rho(t, x, y, z, v, R, sigma):
     """Sheet §1: ρ_E = −(1/8π) v² (y² + z²)/(4 r_s²) (df/dr_s)² (Alcubierre 1994,
-    text via a secondary transcription; derived to 1e−16 in the sheet), with
+    text via a secondary source; derived to 1e−16 in the sheet), with
     df/dr_s from f = [tanh(σ(r_s+R)) − tanh(σ(r_s−R))]/[2 tanh(σR)] (derived)."""
     rs = np.sqrt((x - v * t)**2 + y**2 + z**2)
     fp = sigma / (2 * np.tanh(sigma * R)) * (1 / np.cosh(sigma * (rs + R))**2

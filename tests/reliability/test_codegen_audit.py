@@ -37,9 +37,9 @@ import numpy as np
 import pytest
 import sympy as sp
 
-from auditor.errors import InputError, MetricFileError
+from auditor.errors import MetricFileError
 from auditor.geometry import Geometry, cache, kernels
-from auditor.metric import load_metric, loads_metric
+from auditor.metric import loads_metric
 
 from tests.reliability import assert_one_line_error, audit_source, run_inprocess
 
@@ -430,6 +430,8 @@ def test_a_cache_folder_writable_by_others_is_not_trusted(tmp_path, monkeypatch)
 
 
 def test_a_failed_cache_store_leaves_no_temporary_file(warm_cache):
+    """Regression (found here): store_source swallowed the OSError of os.replace
+    but left its .kernel-*.part file behind."""
     folder, metric, path, legit, ref = warm_cache
     path.unlink()
     path.mkdir()

@@ -26,7 +26,6 @@ import csv
 import importlib.util
 import io
 import json
-import os
 import re
 import resource
 import shlex
@@ -347,6 +346,8 @@ def test_ctrl_c_inside_an_output_write_leaves_no_partial_file(tmp_path, sweep_en
 
 
 def test_sigterm_inside_an_output_write_leaves_no_partial_file(tmp_path, sweep_env):
+    """Regression (found here): with no SIGTERM handler the process died inside
+    atomic_write and left a .auditor-*.part file beside the output."""
     res = _signal_on_write(tmp_path, sweep_env, "SIGTERM")
     _assert_terminated(res.returncode, res.stderr)
     _no_outputs(tmp_path)
@@ -469,6 +470,9 @@ def test_a_small_file_whose_derivatives_explode_is_refused_in_time(limit_runs):
 
 
 def test_a_grid_that_does_not_fit_in_memory_is_refused_cleanly(tmp_path):
+    """Regression (found here): a grid under MAX_GRID_POINTS (310**3 events,
+    ~4.5 GB of result maps) under a 3 GiB address-space limit ended in
+    MemoryError, exit 70, instead of a one-line refusal."""
     (tmp_path / "m.toml").write_text(FLAT3)
     res = subprocess.run(auditor_cmd("check", "m.toml", "--points", "310", "--quiet"),
                          cwd=tmp_path, env=child_env(), capture_output=True, text=True,
