@@ -46,6 +46,10 @@ def cache_dir() -> Path | None:
         path = Path(xdg) / "auditor" if xdg else Path.home() / ".cache" / "auditor"
     try:
         path.mkdir(parents=True, exist_ok=True, mode=0o700)
+        st = path.stat()
+        # A folder another user owns or may write into is not trusted.
+        if st.st_uid != os.getuid() or st.st_mode & 0o022:
+            return None
         return path if os.access(path, os.W_OK) else None
     except OSError:
         return None
@@ -73,9 +77,13 @@ def cache_key(kind: str, exprs) -> str:
     return h.hexdigest()
 
 
-def _secret(folder: Path) -> bytes:
+def _secret(folder: Path) -> bytes | None:
+    """The per-user HMAC key; None if the existing one is readable by others."""
     path = folder / "secret"
     try:
+        st = path.stat()
+        if st.st_uid != os.getuid() or st.st_mode & 0o077:
+            return None
         data = path.read_bytes()
         if len(data) == 32:
             return data
@@ -96,8 +104,10 @@ def _secret(folder: Path) -> bytes:
     return path.read_bytes() if path.exists() else data
 
 
-def _mac(secret: bytes, source: str) -> str:
-    return hmac.new(secret, source.encode(), hashlib.sha256).hexdigest()
+def _mac(secret: bytes, key: str, source: str) -> str:
+    """HMAC of the key and the source together: a signed kernel of another metric
+    renamed onto this key does not verify."""
+    return hmac.new(secret, key.encode() + b"\0" + source.encode(), hashlib.sha256).hexdigest()
 
 
 def load_source(key: str, check: Callable[[str], None]) -> str | None:
@@ -113,7 +123,9 @@ def load_source(key: str, check: Callable[[str], None]) -> str | None:
     head, _, source = text.partition("\n")
     if not head.startswith(_HEADER):
         return None
-    if not hmac.compare_digest(head[len(_HEADER):], _mac(_secret(folder), source)):
+    secret = _secret(folder)
+    if secret is None or not hmac.compare_digest(head[len(_HEADER):],
+                                                 _mac(secret, key, source)):
         return None
     try:
         check(source)
@@ -127,7 +139,10 @@ def store_source(key: str, source: str) -> None:
     folder = cache_dir()
     if folder is None:
         return
-    text = f"{_HEADER}{_mac(_secret(folder), source)}\n{source}"
+    secret = _secret(folder)
+    if secret is None:
+        return
+    text = f"{_HEADER}{_mac(secret, key, source)}\n{source}"
     tmp = None
     try:
         fd, tmp = tempfile.mkstemp(dir=folder, prefix=".kernel-", suffix=".part")

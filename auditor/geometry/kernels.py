@@ -118,6 +118,16 @@ def _check_source(src: str) -> None:
     or one of the whitelisted NumPy attributes. A guard against a future change
     letting a user name through: it fails loudly instead of compiling.
     """
+    if not src.isascii():
+        raise RuntimeError("generated source holds non-ASCII characters")
+    import io
+    import tokenize
+    try:
+        for tk in tokenize.generate_tokens(io.StringIO(src).readline):
+            if tk.type == tokenize.STRING and tk.string != "'ignore'":
+                raise RuntimeError(f"generated source holds a string literal {tk.string[:20]!r}")
+    except (tokenize.TokenError, SyntaxError) as exc:
+        raise RuntimeError(f"generated source does not tokenize: {exc}") from exc
     for tok in re.findall(r"[A-Za-z_][A-Za-z_0-9]*(?:\.[A-Za-z_][A-Za-z_0-9]*)?", src):
         if tok in ("def", "return", "with", "for", "in", "None", "range", "all", "ignore"):
             continue
