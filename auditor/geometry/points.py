@@ -17,8 +17,6 @@ the round-off estimate of the curvature, and the event is counted as
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Sequence
-
 import numpy as np
 
 from .curvature import Curvature, curvature_from_raw, split_raw
@@ -188,6 +186,3 @@ class Geometry:
     def reason_names(self, reason: np.ndarray) -> list[str]:
         return ["ok" if r == 0 else REASONS[r - 1] for r in reason]
 
-
-def reason_code(name: str) -> int:
-    return _CODE[name]

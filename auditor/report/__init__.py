@@ -27,7 +27,7 @@ failure) are raised as :class:`ReportError`, a subclass of
 
 from __future__ import annotations
 
-from ..errors import AuditorError, ReportError
+from ..errors import ReportError
 
 __all__ = ["ReportError", "write_report", "write_latex", "render_html", "latex_table"]
 

@@ -231,7 +231,6 @@ def map_figure(ctx: GridContext, values, *, kind: str, focus: int | None,
         (boundary and any(_contour_field(ctx, p, values, tol, level, kind) is not None
                           for p in pls))
     fig, axes, cax = _map_layout(ctx, len(pls), h, v, extent, equal, legend)
-    n = len(pls)
     any_exc = any(e.any() for e in exc_planes)
     any_sat = any(s.any() for s in sat_planes)
     any_boundary = False

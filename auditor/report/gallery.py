@@ -148,7 +148,7 @@ def _draw(result, j, dims) -> dict:
                         f"body for the {escape(t['frame'])} observers, in standard g (logarithmic "
                         f"scale)" + (f"; the vermillion line is the {format_number(level)} g criterion"
                                      if drawn.boundary else "")
-                        + (f"; hatched: excluded or undefined" if drawn.excluded else "")
+                        + ("; hatched: excluded or undefined" if drawn.excluded else "")
                         + ". "
                         f"Peak {format_number(t['peak_accel_g'])} g. "
                         + _esc_plane(ctx, drawn.planes, "peak") + " " + _SCREENING, uri)
