@@ -274,6 +274,10 @@ class _Builder:
             number = sp.Rational(src.replace("_", "")) if src else sp.Rational(repr(value))
         except (TypeError, ValueError):
             number = sp.Rational(value)
+        if number != 0 and abs(number) < sp.Rational(1, 10**300):
+            # Below 1e-300 a double cannot hold it faithfully (and 1e-400 reads as 0.0).
+            self.fail("number too small (below 1e-300 in size)", self.col(node),
+                      "write 0 if zero is meant")
         return self.checked(number, node)
 
     def _Name(self, node, depth):
