@@ -355,6 +355,9 @@ class _Builder:
             if left.is_negative:
                 self.fail(f"negative constant '{_short(str(left))}' to a non-constant power "
                           "is not a real number", self.col(node))
+            if left == 0:
+                self.fail("zero to a non-constant power is undefined where the power is not "
+                          "positive", self.col(node), "write 0 if zero is meant")
         return self.checked(left ** right, node)
 
     def _UnaryOp(self, node, depth):

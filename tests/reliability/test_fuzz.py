@@ -559,6 +559,14 @@ def test_a_tiny_constant_inside_a_function_is_not_an_internal_error(tmp_path, ca
     assert code in (0, 2) and err.count("\n") <= 1, err
 
 
+def test_zero_to_a_symbolic_power_is_not_an_internal_error(tmp_path, capsys):
+    path = tmp_path / "zero.toml"
+    path.write_text('name = "zero"\ncoordinates = ["t", "x", "y", "z"]\n[metric]\n'
+                    'line_element = "-dt**2 + (2 + 0**sec(x))*dx**2 + dy**2 + dz**2"\n')
+    code, out, err = run_inprocess(["probe", path, "--at", "t=0,x=0.5,y=0,z=0"], capsys)
+    assert code in (0, 2) and err.count("\n") <= 1, err
+
+
 # -- long runs (opt in) ----------------------------------------------------------
 def _long(strategy, check, request):
     require_long(request)

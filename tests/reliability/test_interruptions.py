@@ -32,6 +32,7 @@ import shlex
 import signal
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -105,7 +106,9 @@ PRODUCT_SECONDS = 20
 
 @pytest.fixture(scope="module")
 def limit_runs(tmp_path_factory):
-    """Start every resource-limit child at once; name -> (Popen, start, folder)."""
+    """Start every resource-limit child at once; name -> (Popen, deadline flag,
+    folder). A timer kills each child at its deadline (so that a runaway does
+    not hold a core while the other tests run) and records that it did."""
     root = tmp_path_factory.mktemp("limits")
     runs = {}
     cases = dict(LIMITS)
@@ -118,21 +121,29 @@ def limit_runs(tmp_path_factory):
         proc = subprocess.Popen(auditor_cmd(*args), cwd=folder, stdout=subprocess.PIPE,
                                 stderr=subprocess.PIPE, text=True, stdin=subprocess.DEVNULL,
                                 env=child_env(root / "cache"), preexec_fn=_limit_memory(4 * GiB))
-        runs[name] = (proc, time.monotonic(), folder)
-    yield runs
-    for proc, _, _ in runs.values():
+        flag = {"killed": False}
+
+        def expire(proc=proc, flag=flag):
+            if proc.poll() is None:
+                flag["killed"] = True
+                proc.kill()
+
+        timer = threading.Timer(PRODUCT_SECONDS if name == "product" else LIMIT_SECONDS, expire)
+        timer.daemon = True
+        timer.start()
+        runs[name] = (proc, flag, folder, timer)
+    yield {k: v[:3] for k, v in runs.items()}
+    for proc, flag, folder, timer in runs.values():
+        timer.cancel()
         if proc.poll() is None:
             proc.kill()
             proc.communicate()
 
 
 def _finish(run, seconds):
-    proc, start, folder = run
-    try:
-        out, err = proc.communicate(timeout=max(0.1, start + seconds - time.monotonic()))
-    except subprocess.TimeoutExpired:
-        proc.kill()
-        out, err = proc.communicate()
+    proc, flag, folder = run
+    out, err = proc.communicate(timeout=seconds + 30)    # the timer ends it by then
+    if flag["killed"]:
         pytest.fail(f"still running {seconds} s after it started (killed); stderr {err[-500:]!r}")
     return proc.returncode, out, err, folder
 
