@@ -504,18 +504,24 @@ def _chunk_on_dask(path, sha256, parameters, grid, a, b, check):
     return chunk_fields(metric, _STATE["dask_geometry"], grid, a, b, check)
 
 
+def dask_client(address: str):
+    """A client of the Dask scheduler at ``address``; usage errors with an install
+    hint when the optional extra is missing or the scheduler cannot be reached."""
+    try:
+        from distributed import Client
+    except ImportError as exc:
+        raise UsageError("--dask needs Dask's distributed scheduler: "
+                         "pip install 'auditor[dask]' (or pip install distributed)") from exc
+    try:
+        return Client(address, timeout="10s")
+    except (OSError, TimeoutError) as exc:
+        raise UsageError(f"--dask: cannot reach a Dask scheduler at {address} ({exc})") from exc
+
+
 def _chunks(metric, geometry, grid, bounds, check_mask, jobs, dask):
     """Yield ((start, stop), fields) for every chunk, in order, however they are run."""
     if dask:
-        try:
-            from distributed import Client
-        except ImportError as exc:
-            raise UsageError("--dask needs Dask's distributed scheduler: "
-                             "pip install 'auditor[dask]' (or pip install distributed)") from exc
-        try:
-            client = Client(dask, timeout="10s")
-        except (OSError, TimeoutError) as exc:
-            raise UsageError(f"--dask: cannot reach a Dask scheduler at {dask} ({exc})") from exc
+        client = dask_client(dask)
         try:
             futs = [client.submit(_chunk_on_dask, metric.path, metric.sha256,
                                   dict(metric.parameters), grid, a, b, check_mask[a:b],

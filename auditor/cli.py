@@ -26,6 +26,16 @@ class _Parser(argparse.ArgumentParser):
                   if getattr(self, "_sub", "") else f"auditor: error: {message}\n")
 
 
+def _at_least_one(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected an integer, got '{text}'") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, got {value}")
+    return value
+
+
 def _common(p: argparse.ArgumentParser):
     p.add_argument("file", help="metric file (TOML)")
     p.add_argument("--set", action="append", default=[], metavar="NAME=VALUE",
@@ -57,7 +67,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--require", default="NEC,WEC,SEC,DEC", metavar="NEC,WEC,...",
                    help="conditions that decide the exit code (default all four)")
     p.add_argument("--quiet", action="store_true", help="no progress on stderr")
-    p.add_argument("--jobs", type=int, default=1, metavar="N", help="processes to use")
+    p.add_argument("--jobs", type=_at_least_one, default=1, metavar="N",
+                   help="processes to use")
     p.add_argument("--dask", metavar="ADDRESS", help="spread the grid over a Dask scheduler")
     p.set_defaults(func=_cmd_check)
 
@@ -84,7 +95,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--plot", metavar="PATH", help="figure of margins and energy (default: the "
                    "table's name with .pdf)")
     p.add_argument("--json", metavar="PATH|-", help="also write the rows as JSON")
-    p.add_argument("--jobs", type=int, default=1, metavar="N", help="processes to use")
+    p.add_argument("--jobs", type=_at_least_one, default=1, metavar="N",
+                   help="processes to use")
     p.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler")
     p.add_argument("--require", default="NEC,WEC,SEC,DEC", metavar="NEC,WEC,...",
                    help="conditions that decide the exit code (default all four)")
@@ -131,9 +143,6 @@ def _cmd_check(args) -> int:
     from .outputs import write_json
     from .textout import format_audit
     require = _require(args.require)
-    if args.jobs < 1:
-        from .errors import UsageError
-        raise UsageError(f"--jobs must be at least 1, got {args.jobs}")
     metric = _load(args)
     result = audit(metric, progress=False if args.quiet else None, jobs=args.jobs,
                    dask=args.dask)
@@ -165,12 +174,9 @@ def _cmd_report(args) -> int:
 
 def _cmd_sweep(args) -> int:
     import os
-    from .errors import UsageError
     from .outputs import atomic_write, write_json
     from .sweep import _journal_path, parse_vary, plot_sweep, sweep
     require = _require(args.require)
-    if args.jobs < 1:
-        raise UsageError(f"--jobs must be at least 1, got {args.jobs}")
     metric = _load(args)
     varies = parse_vary(args.vary, metric)
     plot = args.plot or os.path.splitext(args.output)[0] + ".pdf"

@@ -232,15 +232,9 @@ def sweep(metric, varies, *, points=None, overrides=None, jobs: int = 1, dask: s
 
 
 def _run_dask(address, args, todo, require, record):
-    try:
-        from distributed import Client, as_completed
-    except ImportError as exc:
-        raise UsageError("--dask needs Dask's distributed scheduler: "
-                         "pip install 'auditor[dask]' (or pip install distributed)") from exc
-    try:
-        client = Client(address, timeout="10s")
-    except (OSError, TimeoutError) as exc:
-        raise UsageError(f"--dask: cannot reach a Dask scheduler at {address} ({exc})") from exc
+    from .audit import dask_client
+    client = dask_client(address)
+    from distributed import as_completed
     try:
         futs = {client.submit(_audit_combo, *args, c, require, pure=False): i for i, c in todo}
         for fut in as_completed(list(futs)):
