@@ -16,9 +16,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .conditions.hawking_ellis import classify
-from .conditions.margins import dec_margin, nec_margin, sec_margin, wec_margin
+from .conditions.margins import margins_with_observers
 from .conditions.stress import MARGIN_FACTOR, component_tolerance, frame_stress
-from .crew.tidal import tidal_eigen
+from .crew.tidal import tidal_from_bivectors
 from .frames import auditing_frame, static
 from .geometry.points import PointBatch
 
@@ -84,17 +84,14 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
         return None
     E, eul = auditing_frame(curv.g, curv.ginv)
     T = frame_stress(curv.einstein, E)
-    t_tol = component_tolerance(curv.scale_terms, E)
+    t_tol = component_tolerance(curv, E)
     out = PointFields(batch=batch, stress=T, t_tol=t_tol, frame_eulerian=eul, tetrad=E)
     out.tolerances = margin_tolerances(t_tol)
 
-    m, s = nec_margin(T)
-    out.margins["NEC"], out.observers["NEC"] = m, _to_coordinates(E, s)
-    m, w = wec_margin(T)
-    out.margins["WEC"], out.observers["WEC"] = m, _to_coordinates(E, w)
-    m, w = sec_margin(T)
-    out.margins["SEC"], out.observers["SEC"] = m, _to_coordinates(E, w)
-    m, s1, s2 = dec_margin(T)
+    r = margins_with_observers(T)
+    for c in ("NEC", "WEC", "SEC"):
+        out.margins[c], out.observers[c] = r[c][0], _to_coordinates(E, r[c][1])
+    m, s1, s2 = r["DEC"]
     out.margins["DEC"] = m
     k1, k2 = _to_coordinates(E, s1), _to_coordinates(E, s2)
     out.observers["DEC"] = k1
@@ -113,11 +110,12 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
     lam = np.full((len(T), 3), np.nan)
     vec = np.full((len(T), 3, 3), np.nan)
     if cok.any():
-        lam[cok], vec[cok] = tidal_eigen(curv.riemann[cok], Ec[cok])
+        lam[cok], vec[cok] = np.linalg.eigh(tidal_from_bivectors(curv.riemann6()[:, :, cok],
+                                                                  Ec[cok]))
     out.tidal_eigenvalues, out.tidal_vectors = lam, vec
     # Round-off of E_ij = R_{i0j0}: frame components of Riemann carry the same
     # bound as T's (conditions/stress.py), in the crew's own frame.
-    out.tidal_tol = np.where(cok, component_tolerance(curv.scale_terms, np.where(
+    out.tidal_tol = np.where(cok, component_tolerance(curv, np.where(
         cok[:, None, None], Ec, 0.0)), np.nan)
     out.station_accel = station_acceleration(curv)
     return out

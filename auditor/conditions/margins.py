@@ -123,6 +123,7 @@ __all__ = [
     "all_margins",
     "dec_lower_bound",
     "dec_margin",
+    "margins_with_observers",
     "nec_margin",
     "sec_margin",
     "wec_margin",
@@ -244,9 +245,13 @@ def _sphere_min(rho, b, A):
     return _quad(rho, b, A, s), s, lam, Q, beta, t
 
 
-def _ball_min(rho, b, A):
-    """Exact min over |w| ≤ 1 of ρ + 2 b·w + wᵀ A w (scaled units)."""
-    val, w, lam, Q, beta, _ = _sphere_min(rho, b, A)
+def _ball_min(rho, b, A, sphere=None):
+    """Exact min over |w| ≤ 1 of ρ + 2 b·w + wᵀ A w (scaled units).
+
+    ``sphere`` is the result of :func:`_sphere_min` for the same (ρ, b, A), if
+    already known.
+    """
+    val, w, lam, Q, beta, _ = _sphere_min(rho, b, A) if sphere is None else sphere
     pd = lam[:, 0] > 0
     with np.errstate(divide="ignore", invalid="ignore"):
         c = np.where(pd[:, None], -beta / np.where(pd[:, None], lam, 1.0), 0.0)
@@ -399,37 +404,78 @@ def _dec_newton(rho, b, A, s1, s2, F, iters):
     return s1, s2, F
 
 
-def _dec_block(rho, b, A, n_dirs, n_starts):
-    """DEC search on one block of points (scaled units)."""
+def _cf_partner(b, A, s, prev):
+    """Component-first ``_partner``: b, s, prev (3, M), A (3, 3, M)."""
+    r = b + A[:, 0] * s[0] + A[:, 1] * s[1] + A[:, 2] * s[2]
+    nr = np.sqrt(r[0] * r[0] + r[1] * r[1] + r[2] * r[2])
+    ok = nr > 0
+    return np.where(ok, -r / np.where(ok, nr, 1.0), prev)
+
+
+def _cf_alternate(b, A, s1, s2, iters, every=5):
+    """(iii) of the DEC search, component-first (b, s1, s2 (3, M), A (3, 3, M)).
+
+    Each step s2 ← −(b + A s1)/|…|, s1 ← −(b + A s2)/|…| never increases the
+    objective. Rows are checked every ``every`` steps: a row whose last step
+    moved neither vector by more than 1e-10 stops (it only ranks the starts;
+    the best are polished by Newton's method afterwards); the others go on for
+    ``iters`` steps in all.
+    """
+    idx = np.arange(s1.shape[1])
+    done = 0
+    while done < iters and idx.size:
+        bb, AA, p1, p2 = b[:, idx], A[:, :, idx], s1[:, idx], s2[:, idx]
+        for _ in range(min(every, iters - done)):
+            q1, q2 = p1, p2
+            p1 = _cf_partner(bb, AA, q2, q1)
+            p2 = _cf_partner(bb, AA, p1, q2)
+        done += every
+        s1[:, idx], s2[:, idx] = p1, p2
+        d1, d2 = np.abs(p1 - q1), np.abs(p2 - q2)
+        moved = np.maximum(np.maximum(np.maximum(d1[0], d1[1]), np.maximum(d1[2], d2[0])),
+                           np.maximum(d2[1], d2[2]))
+        idx = idx[moved > 1e-10]
+    return s1, s2
+
+
+def _dec_block(rho, b, A, n_dirs, n_starts, sN, Q):
+    """DEC search on one block of points (scaled units); sN, Q: the NEC
+    minimiser and the eigenvectors of A at these points."""
     n = rho.shape[0]
     dirs = fibonacci_directions(n_dirs)
-    # (i) global scan of g(s1) = ρ + b·s1 − |b + A s1|
-    r = b[:, None, :] + np.matmul(dirs[None], np.swapaxes(A, 1, 2))
-    g = rho[:, None] + b @ dirs.T - np.sqrt((r * r).sum(axis=-1))
+    # (i) global scan of g(s1) = ρ + b·s1 − |b + A s1|, component by component
+    r2 = np.zeros((n, dirs.shape[0]))
+    for i in range(3):
+        ri = b[:, i, None] + A[:, i, 0, None] * dirs[:, 0] + A[:, i, 1, None] * dirs[:, 1] \
+            + A[:, i, 2, None] * dirs[:, 2]
+        r2 += ri * ri
+    g = rho[:, None] + b @ dirs.T - np.sqrt(r2)
     m = min(n_starts, n_dirs)
     best = np.argpartition(g, m - 1, axis=1)[:, :m]
     # (ii) special starts: the NEC pair, extreme eigenvectors, ±b̂
-    _, sN, lam, Q, _, _ = _sphere_min(rho, b, A)
     bn = np.linalg.norm(b, axis=1, keepdims=True)
     bhat = np.where(bn > 0, b / np.where(bn > 0, bn, 1.0), Q[:, :, 1])
     first = np.concatenate([dirs[best], np.stack(
         [sN, Q[:, :, 0], -Q[:, :, 0], Q[:, :, 2], -Q[:, :, 2], bhat, -bhat], axis=1)], axis=1)
     k = first.shape[1]
     rows = np.repeat(np.arange(n), k)
-    rr, bb, AA = rho[rows], b[rows], A[rows]
-    s1 = first.reshape(-1, 3).copy()
-    s2 = _partner(bb, AA, s1, s1)
+    rr = rho[rows]
+    bc = np.ascontiguousarray(b.T)[:, rows]                    # (3, n·k)
+    Ac = np.ascontiguousarray(np.moveaxis(A, 0, -1))[:, :, rows]  # (3, 3, n·k)
+    s1 = np.ascontiguousarray(first.reshape(-1, 3).T)
+    s2 = _cf_partner(bc, Ac, s1, s1)
     nec_row = np.arange(n) * k + m
-    s2[nec_row] = sN               # the NEC pair itself, s1 = s2 = s_N
+    s2[:, nec_row] = sN.T          # the NEC pair itself, s1 = s2 = s_N
     # (iii) alternating exact block minimisation (monotone)
-    for _ in range(_DEC_ALTERNATIONS):
-        s1 = _partner(bb, AA, s2, s1)
-        s2 = _partner(bb, AA, s1, s2)
-    F = _dec_value(rr, bb, AA, s1, s2)
+    s1, s2 = _cf_alternate(bc, Ac, s1, s2, _DEC_ALTERNATIONS)
+    F = rr + ((s1 + s2) * bc).sum(axis=0) + (s1 * (Ac[:, 0] * s2[0] + Ac[:, 1] * s2[1]
+                                                 + Ac[:, 2] * s2[2])).sum(axis=0)
     # (iv) Newton polish of the best _DEC_POLISHED starts of each point
     order = np.argsort(F.reshape(n, k), axis=1)[:, :_DEC_POLISHED]
     sel = (np.arange(n)[:, None] * k + order).ravel()
-    p1, p2, pf = _dec_newton(rr[sel], bb[sel], AA[sel], s1[sel], s2[sel], F[sel], _DEC_NEWTON)
+    s1, s2 = s1.T, s2.T
+    p1, p2, pf = _dec_newton(rr[sel], b[rows[sel]], A[rows[sel]], s1[sel].copy(),
+                             s2[sel].copy(), F[sel], _DEC_NEWTON)
     pf = pf.reshape(n, -1)
     j = np.argmin(pf, axis=1)
     pick = np.arange(n) * pf.shape[1] + j
@@ -467,18 +513,24 @@ def dec_margin(T, *, n_dirs: int = DEC_DIRECTIONS, n_starts: int = DEC_STARTS):
     if int(n_dirs) < 1 or int(n_starts) < 1:
         raise ValueError("`n_dirs` and `n_starts` must be positive integers.")
     rho, b, A, scale = _scaled(T)
+    val, s1, s2 = _dec_search(rho, b, A, _sphere_min(rho, b, A), int(n_dirs), int(n_starts))
+    return val * scale, s1, s2
+
+
+def _dec_search(rho, b, A, sphere, n_dirs=DEC_DIRECTIONS, n_starts=DEC_STARTS):
+    """DEC margin in scaled units from the NEC sphere solution of the same points."""
+    valN, sN, lam, Q, _, t = sphere
     # Where the dual bound is attained by the NEC pair (t ≥ λ1 + max|λ_i|,
     # module docstring) the NEC pair is DEC-optimal: no search needed.
-    valN, sN, lam, _, _, t = _sphere_min(rho, b, A)
     val = valN.copy()
     s1 = sN.copy()
     s2 = sN.copy()
     todo = np.flatnonzero(t - lam[:, 0] < np.abs(lam).max(axis=1))
     for lo in range(0, todo.size, _DEC_CHUNK):     # blocks of points, not points
         rows = todo[lo:lo + _DEC_CHUNK]
-        val[rows], s1[rows], s2[rows] = _dec_block(rho[rows], b[rows], A[rows],
-                                                   int(n_dirs), int(n_starts))
-    return val * scale, s1, s2
+        val[rows], s1[rows], s2[rows] = _dec_block(rho[rows], b[rows], A[rows], n_dirs,
+                                                   n_starts, sN[rows], Q[rows])
+    return val, s1, s2
 
 
 def dec_lower_bound(T):
@@ -529,16 +581,44 @@ def _four(v):
     return np.concatenate([np.ones(v.shape[:-1] + (1,)), v], axis=-1)
 
 
+def margins_with_observers(T, **dec_options):
+    """All four margins with their worst observers' spatial parts, sharing work.
+
+    Returns {"NEC": (m, s), "WEC": (m, w), "SEC": (m, w), "DEC": (m, s1, s2)}.
+    One eigen-decomposition of A and one secular solve serve all four: the
+    WEC ball starts from the NEC sphere, DEC is certified by (or starts from)
+    the NEC pair, and SEC's X = T − ½ (tr T) η has X_ij = A_ij − c δ_ij
+    (c = ½ (tr A − ρ)), the same eigenvectors and eigenvalue gaps, hence the
+    same secular root and sphere minimiser (its value shifts by a constant).
+    """
+    T = _check_T(T)
+    n_dirs = int(dec_options.get("n_dirs", DEC_DIRECTIONS))
+    n_starts = int(dec_options.get("n_starts", DEC_STARTS))
+    if n_dirs < 1 or n_starts < 1:
+        raise ValueError("`n_dirs` and `n_starts` must be positive integers.")
+    rho, b, A, scale = _scaled(T)
+    sphere = _sphere_min(rho, b, A)
+    valN, sN, lam, Q, beta, t = sphere
+    out = {"NEC": (valN * scale, sN)}
+    vw, w = _ball_min(rho, b, A, sphere)
+    out["WEC"] = (vw * scale, w)
+    x00, xb, xA = _sec_parts(rho, b, A)
+    c = 0.5 * (np.trace(A, axis1=1, axis2=2) - rho)
+    sphere_x = (_quad(x00, xb, xA, sN), sN, lam - c[:, None], Q, beta, t)
+    vs, ws = _ball_min(x00, xb, xA, sphere_x)
+    out["SEC"] = (vs * scale, ws)
+    vd, s1, s2 = _dec_search(rho, b, A, sphere, n_dirs, n_starts)
+    out["DEC"] = (vd * scale, s1, s2)
+    return out
+
+
 def all_margins(T, **dec_options) -> Margins:
     """NEC, WEC, SEC and DEC margins with their worst observers (:class:`Margins`).
 
     ``dec_options`` are passed to :func:`dec_margin`.
     """
-    T = _check_T(T)
-    mn, s = nec_margin(T)
-    mw, w = wec_margin(T)
-    ms, ws = sec_margin(T)
-    md, s1, s2 = dec_margin(T, **dec_options)
+    r = margins_with_observers(T, **dec_options)
+    (mn, s), (mw, w), (ms, ws), (md, s1, s2) = r["NEC"], r["WEC"], r["SEC"], r["DEC"]
     return Margins(nec=mn, wec=mw, sec=ms, dec=md,
                    nec_observer=_four(s), wec_observer=_four(w), sec_observer=_four(ws),
                    dec_pair=np.stack([_four(s1), _four(s2)], axis=1))

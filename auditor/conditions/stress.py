@@ -5,9 +5,10 @@ Frame components T_âb̂ = e_â^μ e_b̂^ν T_μν (see :mod:`auditor.frames`).
 
 Round-off (cli-contract "Verdict semantics"): the error of a coordinate
 component of the Riemann tensor is a few ulps of the size of the terms that
-cancel in forming it, ``Curvature.scale_terms`` (S_μνρσ). A frame component
-R_âb̂ĉd̂ = e_â^μ e_b̂^ν e_ĉ^ρ e_d̂^σ R_μνρσ is then uncertain by at most
-ε Ŝ_âb̂ĉd̂ with Ŝ = |e|⊗|e|⊗|e|⊗|e| · S, and the largest Ŝ bounds them all.
+cancel in forming it, ``Curvature.scale21`` (S_μνρσ, one entry per independent
+component). A frame component R_âb̂ĉd̂ = e_â^μ e_b̂^ν e_ĉ^ρ e_d̂^σ R_μνρσ is then
+uncertain by at most ε Ŝ_âb̂ĉd̂ with Ŝ = |e|⊗|e|⊗|e|⊗|e| · S (computed in the
+bivector form, :func:`frame_scale`), and the largest Ŝ bounds them all.
 Ricci and Einstein sum at most 12 such components, and 1/8π brings that back
 near 0.5, so a component of T is uncertain by about ``TOL_FACTOR`` ε max Ŝ
 with ``TOL_FACTOR`` = 16 (a factor ~30 of headroom for the ulps of each
@@ -21,6 +22,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..frames import to_frame
+from ..geometry.curvature import R21, bivector_weights
 
 __all__ = ["TOL_FACTOR", "MARGIN_FACTOR", "frame_stress", "frame_scale", "component_tolerance"]
 
@@ -29,22 +31,26 @@ MARGIN_FACTOR = 8.0
 _EPS = np.finfo(float).eps
 
 
-def frame_scale(scale_terms: np.ndarray, E: np.ndarray) -> np.ndarray:
-    """max over â,b̂,ĉ,d̂ of Ŝ = |e_â^μ||e_b̂^ν||e_ĉ^ρ||e_d̂^σ| S_μνρσ (N,)."""
-    n = len(E)
-    At = np.swapaxes(np.abs(E), 1, 2)
-    s = scale_terms
-    # Contract the last index with |e| and rotate it to the front, four times
-    # (only the maximum is kept, so the final index order does not matter).
-    for _ in range(4):
-        s = (np.ascontiguousarray(s).reshape(n, 64, 4) @ At).reshape(n, 4, 4, 4, 4)
-        s = s.transpose(0, 4, 1, 2, 3)
-    return s.reshape(n, -1).max(axis=1)
+def frame_scale(curv, E: np.ndarray) -> np.ndarray:
+    """max over frame components of Ŝ_âb̂ĉd̂ (N,), the bound on |e|⁴ · S.
+
+    S has the Riemann pair structure (one entry per independent component
+    R_AB; the others are signed copies or exact zeros), so a frame component
+    R_ÂB̂ = Σ W[Â,A] R_AB W[B̂,B] is uncertain by at most
+    Ŝ_ÂB̂ = Σ |W|[Â,A] S_AB |W|[B̂,B] with
+    |W|[Â,A] = |e_â^α||e_b̂^β| + |e_â^β||e_b̂^α| (bivector weights).
+    ``curv`` is a :class:`~auditor.geometry.Curvature` (or a (21,N) array of S).
+    """
+    s21 = curv if isinstance(curv, np.ndarray) else curv.scale21
+    w = bivector_weights(E, absolute=True)                      # (6,6,N)
+    y = np.einsum("ABn,BCn->ACn", w, s21[R21])
+    z = np.einsum("ACn,DCn->ADn", y, w)
+    return z.reshape(36, -1).max(axis=0)
 
 
-def component_tolerance(scale_terms: np.ndarray, E: np.ndarray) -> np.ndarray:
+def component_tolerance(curv, E: np.ndarray) -> np.ndarray:
     """Absolute round-off estimate of the frame components of T (N,)."""
-    return TOL_FACTOR * _EPS * frame_scale(scale_terms, E)
+    return TOL_FACTOR * _EPS * frame_scale(curv, E)
 
 
 def frame_stress(einstein: np.ndarray, E: np.ndarray) -> np.ndarray:

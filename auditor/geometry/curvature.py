@@ -12,46 +12,118 @@ Conventions: DEVELOPERS.md, "Conventions" (MTW signs). With
 * Ricci R_bd = g^ac R_abcd, scalar R = g^bd R_bd, Einstein
   G_ab = R_ab − ½ R g_ab, Kretschmann K = R_abcd R^abcd.
 
-Arrays are point-first: g (N,4,4), dg (N,4,4,4) with dg[n,c,a,b] = ∂_c g_ab,
-d2g (N,4,4,4,4) with d2g[n,c,d,a,b] = ∂_c∂_d g_ab, Γ (N,4,4,4) with
-Γ[n,a,b,c] = Γ^a_bc, Riemann (N,4,4,4,4) with R[n,a,b,c,d] = R_abcd.
+How it is computed
+------------------
+The work is done component-first, on rows of length N (the kernel's own
+layout), so every NumPy operation runs over all points of the batch at once.
+Only the independent components are formed: the 10 symmetric pairs of
+Γ_a(bc) and Γ^a_(bc), and the 21 components R_AB (A ≤ B) of Riemann as a
+symmetric 6×6 matrix over the bivector pairs A, B ∈ {01, 02, 03, 12, 13, 23}
+(R_abcd = −R_bacd = −R_abdc = R_cdab). Every other component is a signed
+copy of one of these; components with a = b or c = d are exactly zero.
+Kretschmann uses the same bivector form: with the bivector metric
+𝒢^{AB} = g^ac g^bd − g^ad g^bc, R^{AB} = (𝒢 R 𝒢)^{AB} and
+K = 4 tr(R 𝒢 R 𝒢) (each bivector pair counted once instead of twice on each
+side).
 
-Round-off: ``scale`` is the size of the terms that cancel in forming R_abcd
-(the sum of absolute values of each term), per point; the error of any
-curvature component is a modest multiple of machine epsilon times it. It is
-not the size of the result, which vanishes in vacuum or flat space.
+Point-first arrays (``riemann`` (N,4,4,4,4), ``christoffel`` (N,4,4,4) with
+Γ[n,a,b,c] = Γ^a_bc, ``scale_terms``) are built on first use only.
+
+Round-off: ``scale21`` is, per independent component, the size of the terms
+that cancel in forming R_AB (the sum of their absolute values); the error of
+the component is a modest multiple of machine epsilon times it. ``scale`` is
+its largest entry per point. It is not the size of the result, which
+vanishes in vacuum or flat space.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from functools import cached_property
+from itertools import combinations_with_replacement
 
 import numpy as np
 
 from .kernels import D2IDX, DIDX, GIDX
 
-__all__ = ["Curvature", "split_raw", "curvature_from_raw"]
+__all__ = ["Curvature", "split_raw", "curvature_from_raw", "curvature_from_rows",
+           "BIVECTORS", "R21", "bivector_weights"]
+
+_PAIRS = list(combinations_with_replacement(range(4), 2))         # 10 symmetric pairs
+_PIDX = np.zeros((4, 4), dtype=np.intp)
+for _k, (_a, _b) in enumerate(_PAIRS):
+    _PIDX[_a, _b] = _PIDX[_b, _a] = _k
+
+#: Bivector pairs (a < b), the index A of the 6×6 form.
+BIVECTORS = [(0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3)]
+_R21_PAIRS = list(combinations_with_replacement(range(6), 2))     # 21 (A <= B)
+#: R21[A, B] = row of the independent component R_AB (symmetric).
+R21 = np.zeros((6, 6), dtype=np.intp)
+for _k, (_A, _B) in enumerate(_R21_PAIRS):
+    R21[_A, _B] = R21[_B, _A] = _k
 
 
-@dataclass(frozen=True)
-class Curvature:
-    """Geometric quantities on N points (geometric units; layout above)."""
+def _full_index():
+    """Row (into the 21 components, or 21 for an exact zero) and sign of R_abcd."""
+    biv = {p: i for i, p in enumerate(BIVECTORS)}
+    rows = np.full(256, 21, dtype=np.intp)
+    sign = np.zeros(256)
+    for a in range(4):
+        for b in range(4):
+            for c in range(4):
+                for d in range(4):
+                    if a == b or c == d:
+                        continue
+                    s = (1.0 if a < b else -1.0) * (1.0 if c < d else -1.0)
+                    A, B = biv[(min(a, b), max(a, b))], biv[(min(c, d), max(c, d))]
+                    k = 64 * a + 16 * b + 4 * c + d
+                    rows[k], sign[k] = R21[A, B], s
+    return rows, sign
 
-    g: np.ndarray          # (N,4,4)
-    ginv: np.ndarray       # (N,4,4)
-    dg: np.ndarray         # (N,4,4,4)
-    christoffel: np.ndarray  # (N,4,4,4) Γ^a_bc
-    riemann: np.ndarray    # (N,4,4,4,4) R_abcd
-    ricci: np.ndarray      # (N,4,4)
-    ricci_scalar: np.ndarray  # (N,)
-    einstein: np.ndarray   # (N,4,4) G_ab
-    kretschmann: np.ndarray   # (N,)
-    scale: np.ndarray      # (N,) size of the cancelling terms of R_abcd (max over components)
-    scale_terms: np.ndarray  # (N,4,4,4,4) that size per component
-    kretschmann_scale: np.ndarray  # (N,) size of the terms summed in K
 
-    def __len__(self) -> int:
-        return self.g.shape[0]
+_FULL_ROWS, _FULL_SIGN = _full_index()
+
+# Γ_a(bc) from first-derivative rows: ½(∂_b g_ac + ∂_c g_ab − ∂_a g_bc), (4, 10).
+_G1 = np.array([[DIDX[b, a, c] for (b, c) in _PAIRS] for a in range(4)])
+_G2 = np.array([[DIDX[c, a, b] for (b, c) in _PAIRS] for a in range(4)])
+_G3 = np.array([[DIDX[a, b, c] for (b, c) in _PAIRS] for a in range(4)])
+
+# The 21 independent Riemann components: second-derivative rows and the rows of
+# P[(bc),(ad)] = Σ_e Γ^e_bc Γ_ead (flattened 10 × 10) in each term.
+_T = {k: [] for k in ("t1", "t2", "t3", "t4", "q1", "q2")}
+for _A, _B in _R21_PAIRS:
+    (_a, _b), (_c, _d) = BIVECTORS[_A], BIVECTORS[_B]
+    _T["t1"].append(D2IDX[_b, _c, _a, _d])
+    _T["t2"].append(D2IDX[_a, _d, _b, _c])
+    _T["t3"].append(D2IDX[_a, _c, _b, _d])
+    _T["t4"].append(D2IDX[_b, _d, _a, _c])
+    _T["q1"].append(10 * _PIDX[_b, _c] + _PIDX[_a, _d])
+    _T["q2"].append(10 * _PIDX[_b, _d] + _PIDX[_a, _c])
+_T = {k: np.array(v) for k, v in _T.items()}
+_T_ROWS = np.stack([_T["t1"], _T["t2"], _T["t3"], _T["t4"]])          # (4, 21)
+
+# Ricci R_bd = Σ_ac g^ac R_abcd for b <= d: (10, 16) rows into the 21 (+ zero row) and signs.
+_RIC_ROWS = np.array([[_FULL_ROWS[64 * a + 16 * b + 4 * c + d] for a in range(4)
+                       for c in range(4)] for (b, d) in _PAIRS])
+_RIC_SIGN = np.array([[_FULL_SIGN[64 * a + 16 * b + 4 * c + d] for a in range(4)
+                       for c in range(4)] for (b, d) in _PAIRS])
+_RIC_G = np.array([[GIDX[a, c] for a in range(4) for c in range(4)] for _ in _PAIRS])
+
+
+def bivector_weights(E: np.ndarray, absolute: bool = False) -> np.ndarray:
+    """W (6,6,N) with W[Â, A] = e_â^α e_b̂^β − e_â^β e_b̂^α for Â = (â<b̂), A = (α<β);
+    with ``absolute``, |e_â^α||e_b̂^β| + |e_â^β||e_b̂^α| (a bound on |W|).
+
+    A frame component of a tensor with the Riemann symmetries is
+    R_ÂB̂ = Σ_AB W[Â,A] R_AB W[B̂,B]. ``E`` is a tetrad (N,4,4), rows the legs.
+    """
+    e = np.abs(E) if absolute else E
+    e = np.moveaxis(e, 0, -1)                        # (4 legs, 4 comps, N)
+    i = np.array([p[0] for p in BIVECTORS])
+    j = np.array([p[1] for p in BIVECTORS])
+    # e_â^α e_b̂^β for all (Â, A): legs (i[Â], j[Â]), components (i[A], j[A]).
+    x = e[i][:, i] * e[j][:, j]                      # (6,6,N)
+    y = e[i][:, j] * e[j][:, i]
+    return x + y if absolute else x - y
 
 
 def split_raw(raw: np.ndarray):
@@ -63,50 +135,109 @@ def split_raw(raw: np.ndarray):
     return g, dg, d2g
 
 
-def curvature_from_raw(g: np.ndarray, dg: np.ndarray, d2g: np.ndarray,
-                       extra_abs: np.ndarray | None = None) -> Curvature:
-    """Assemble Γ, Riemann, Ricci, Einstein and Kretschmann (formulas above).
+class Curvature:
+    """Geometric quantities on N points (geometric units; layout above).
+
+    Component-first: ``rows`` (150,N) kernel output, ``r21``/``scale21`` (21,N)
+    independent Riemann components and their round-off scale, ``christoffel10``
+    (4,10,N) Γ^a_(bc). Point-first: ``g``, ``ginv``, ``ricci``, ``einstein``
+    (N,4,4); ``ricci_scalar``, ``kretschmann``, ``kretschmann_scale``, ``scale``
+    (N,); ``dg``, ``christoffel``, ``riemann``, ``scale_terms`` on first use.
+    """
+
+    def __init__(self, rows, g, ginv, christoffel10, r21, scale21, ricci, ricci_scalar,
+                 einstein, kretschmann, kretschmann_scale):
+        self.rows = rows
+        self.g, self.ginv = g, ginv
+        self.christoffel10 = christoffel10
+        self.r21, self.scale21 = r21, scale21
+        self.ricci, self.ricci_scalar, self.einstein = ricci, ricci_scalar, einstein
+        self.kretschmann, self.kretschmann_scale = kretschmann, kretschmann_scale
+        self.scale = scale21.max(axis=0) if scale21.size else np.zeros(len(g))
+
+    def __len__(self) -> int:
+        return self.g.shape[0]
+
+    @cached_property
+    def dg(self) -> np.ndarray:
+        """(N,4,4,4) with dg[n,c,a,b] = ∂_c g_ab."""
+        return np.moveaxis(self.rows[DIDX], -1, 0)
+
+    @cached_property
+    def christoffel(self) -> np.ndarray:
+        """(N,4,4,4) with Γ[n,a,b,c] = Γ^a_bc."""
+        return np.moveaxis(self.christoffel10[:, _PIDX], -1, 0)
+
+    def _full(self, x21: np.ndarray, signed: bool) -> np.ndarray:
+        x = np.concatenate([x21, np.zeros((1, x21.shape[1]))])[_FULL_ROWS]
+        if signed:
+            x = x * _FULL_SIGN[:, None]
+        return np.ascontiguousarray(x.T).reshape(-1, 4, 4, 4, 4)
+
+    @cached_property
+    def riemann(self) -> np.ndarray:
+        """(N,4,4,4,4) with R[n,a,b,c,d] = R_abcd."""
+        return self._full(self.r21, True)
+
+    @cached_property
+    def scale_terms(self) -> np.ndarray:
+        """(N,4,4,4,4): round-off scale of each R_abcd (0 where it is exactly 0)."""
+        return self._full(self.scale21, False)
+
+    def riemann6(self) -> np.ndarray:
+        """R_AB as a symmetric (6,6,N) array."""
+        return self.r21[R21]
+
+
+def curvature_from_rows(rows: np.ndarray, extra_abs: np.ndarray | None = None) -> Curvature:
+    """Assemble Γ, Riemann, Ricci, Einstein and Kretschmann from kernel rows (150,N).
 
     ``extra_abs`` adds an absolute uncertainty of the Riemann components per
     point (used where derivatives were obtained as limits).
     """
-    n = len(g)
+    n = rows.shape[1]
+    g = np.moveaxis(rows[GIDX], -1, 0)                               # (N,4,4)
     ginv = np.linalg.inv(g)
     ginv = 0.5 * (ginv + np.swapaxes(ginv, 1, 2))
-    # Contractions are batched matrix products (matmul) over reshaped index
-    # pairs; the einsum spelling of each is given beside it.
-    # Γ_abc = ½(∂_b g_ac + ∂_c g_ab − ∂_a g_bc); dg[n,c,a,b] = ∂_c g_ab
-    gam_low = 0.5 * (dg.transpose(0, 2, 1, 3) + dg.transpose(0, 2, 3, 1) - dg)
-    gam = (ginv @ gam_low.reshape(n, 4, 16)).reshape(n, 4, 4, 4)      # g^ad Γ_dbc
-    # Second-derivative part ½(g_ad,bc + g_bc,ad − g_bd,ac − g_ac,bd), d2g[n,c,d,a,b] = ∂_c∂_d g_ab
-    t1 = d2g.transpose(0, 3, 1, 2, 4)        # nbcad->nabcd: ∂_b∂_c g_ad
-    t2 = d2g.transpose(0, 1, 3, 4, 2)        # nadbc->nabcd: ∂_a∂_d g_bc
-    t3 = d2g.transpose(0, 1, 3, 2, 4)        # nacbd->nabcd: ∂_a∂_c g_bd
-    t4 = d2g.transpose(0, 3, 1, 4, 2)        # nbdac->nabcd: ∂_b∂_d g_ac
-    # P[n, bc, ad] = Σ_e Γ^e_bc Γ_ead; then q1 = Γ^e_bc Γ_ead, q2 = Γ^e_bd Γ_eac
-    m1, m2 = gam.reshape(n, 4, 16), gam_low.reshape(n, 4, 16)
-    P = (np.swapaxes(m1, 1, 2) @ m2).reshape(n, 4, 4, 4, 4)           # [b,c,a,d]
-    Pabs = (np.swapaxes(np.abs(m1), 1, 2) @ np.abs(m2)).reshape(n, 4, 4, 4, 4)
-    q1, q2 = P.transpose(0, 3, 1, 2, 4), P.transpose(0, 3, 1, 4, 2)
-    riemann = 0.5 * (t1 + t2 - t3 - t4) + q1 - q2
-    scale_terms = 0.5 * (np.abs(t1) + np.abs(t2) + np.abs(t3) + np.abs(t4)) \
-        + Pabs.transpose(0, 3, 1, 2, 4) + Pabs.transpose(0, 3, 1, 4, 2)
+    gi = np.moveaxis(ginv, 0, -1)                                    # (4,4,N)
+    # Γ_a(bc) and Γ^a_(bc) = g^ad Γ_d(bc), (4,10,N)
+    low = 0.5 * (rows[_G1] + rows[_G2] - rows[_G3])
+    up = np.einsum("adn,dkn->akn", gi, low)
+    # P[(bc),(ad)] = Σ_e Γ^e_bc Γ_ead and the same with absolute values (100,N)
+    P = np.einsum("ekn,ejn->kjn", up, low).reshape(100, n)
+    Pabs = np.einsum("ekn,ejn->kjn", np.abs(up), np.abs(low)).reshape(100, n)
+    t = rows[_T_ROWS]                                                # (4,21,N)
+    r21 = 0.5 * ((t[0] + t[1]) - (t[2] + t[3])) + (P[_T["q1"]] - P[_T["q2"]])
+    scale21 = 0.5 * np.abs(t).sum(axis=0) + Pabs[_T["q1"]] + Pabs[_T["q2"]]
     if extra_abs is not None:
-        scale_terms = scale_terms + (extra_abs / np.finfo(float).eps)[:, None, None, None, None]
-    scale = scale_terms.reshape(n, -1).max(axis=1)
-    # Ricci R_bd = g^ac R_abcd  (nac,nabcd->nbd)
-    rt = riemann.transpose(0, 2, 4, 1, 3).reshape(n, 16, 16)
-    ricci = (rt @ ginv.reshape(n, 16, 1)).reshape(n, 4, 4)
-    ricci = 0.5 * (ricci + np.swapaxes(ricci, 1, 2))
-    rscalar = (ginv * ricci).reshape(n, -1).sum(axis=1)
+        scale21 = scale21 + extra_abs / np.finfo(float).eps
+    # Ricci R_bd = Σ_ac g^ac R_abcd over the signed copies (10,N)
+    gflat = gi.reshape(16, n)
+    r22 = np.concatenate([r21, np.zeros((1, n))])
+    ric10 = np.einsum("pkn,pkn->pn", gflat[np.array([[4 * a + c for a in range(4)
+                                                       for c in range(4)]] * 10)],
+                      r22[_RIC_ROWS] * _RIC_SIGN[:, :, None])
+    ricci = np.moveaxis(ric10[_PIDX], -1, 0)                         # (N,4,4)
+    rscalar = np.einsum("nab,nab->n", ginv, ricci)
     einstein = ricci - 0.5 * rscalar[:, None, None] * g
-    # R^ab_cd = g^ae g^bf R_efcd (nae,nbf,nefcd->nabcd), then K = R^ab_cd R^cd_ab
-    x = (ginv @ riemann.reshape(n, 4, 64)).reshape(n, 4, 4, 16)
-    y = (ginv @ x.transpose(0, 2, 1, 3).reshape(n, 4, 64)).reshape(n, 4, 4, 16)
-    rup = y.transpose(0, 2, 1, 3).reshape(n, 16, 16)
-    kterms = rup * np.swapaxes(rup, 1, 2)
-    kretschmann = kterms.reshape(n, -1).sum(axis=1)
-    kscale = np.abs(kterms).reshape(n, -1).sum(axis=1)
-    return Curvature(g=g, ginv=ginv, dg=dg, christoffel=gam, riemann=riemann, ricci=ricci,
-                     ricci_scalar=rscalar, einstein=einstein, kretschmann=kretschmann,
-                     scale=scale, scale_terms=scale_terms, kretschmann_scale=kscale)
+    # Kretschmann K = 4 tr(R 𝒢 R 𝒢) with the bivector metric 𝒢 (6,6,N)
+    i = np.array([p[0] for p in BIVECTORS])
+    j = np.array([p[1] for p in BIVECTORS])
+    biv_g = gi[i][:, i] * gi[j][:, j] - gi[i][:, j] * gi[j][:, i]
+    X = np.einsum("abn,bcn->acn", r21[R21], biv_g)
+    kterms = X * np.swapaxes(X, 0, 1)
+    kretschmann = 4.0 * kterms.reshape(36, n).sum(axis=0)
+    kscale = 4.0 * np.abs(kterms).reshape(36, n).sum(axis=0)
+    return Curvature(rows, g, ginv, up, r21, scale21, ricci, rscalar, einstein,
+                     kretschmann, kscale)
+
+
+def curvature_from_raw(g: np.ndarray, dg: np.ndarray, d2g: np.ndarray,
+                       extra_abs: np.ndarray | None = None) -> Curvature:
+    """The same from point-first g (N,4,4), dg (N,4,4,4), d2g (N,4,4,4,4)."""
+    n = len(g)
+    rows = np.empty((150, n))
+    rows[GIDX.ravel()] = g.reshape(n, 16).T
+    rows[DIDX.ravel()] = dg.reshape(n, 64).T
+    rows[D2IDX.ravel()] = d2g.reshape(n, 256).T
+    return curvature_from_rows(rows, extra_abs)

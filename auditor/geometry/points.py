@@ -19,8 +19,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 import numpy as np
 
-from .curvature import Curvature, curvature_from_raw, split_raw
-from .kernels import MetricKernel, ScalarKernel, compile_metric, compile_scalars
+from .curvature import Curvature, curvature_from_rows
+from .kernels import GIDX, MetricKernel, ScalarKernel, compile_metric, compile_scalars
 
 __all__ = ["REASONS", "Geometry", "PointBatch", "DEFAULT_CHUNK"]
 
@@ -134,10 +134,9 @@ class Geometry:
                 bad = (reason == 0) & (exc > 0)
                 reason[bad] = _CODE["user_exclusion"]
 
-        g, dg, d2g = split_raw(raw)
         live = np.flatnonzero(reason == 0)
         if live.size:
-            lam = np.linalg.eigvalsh(g[live])
+            lam = np.linalg.eigvalsh(np.moveaxis(raw[:, live][GIDX], -1, 0))
             big = np.abs(lam).max(axis=1)
             degenerate = np.abs(lam).min(axis=1) <= _DEGENERATE_RTOL * big
             lorentz = (lam < 0).sum(axis=1) == 1
@@ -146,15 +145,14 @@ class Geometry:
         ok = reason == 0
         curv = None
         if ok.any():
-            curv = curvature_from_raw(g[ok], dg[ok], d2g[ok], extra_abs[ok])
-            bad = ~(np.isfinite(curv.riemann).reshape(len(curv), -1).all(axis=1)
-                    & np.isfinite(curv.scale))
+            curv = curvature_from_rows(raw[:, ok], extra_abs[ok])
+            bad = ~(np.isfinite(curv.r21).all(axis=0) & np.isfinite(curv.scale)
+                    & np.isfinite(curv.einstein).reshape(len(curv), -1).all(axis=1))
             if bad.any():  # overflow in assembly: treat as singular
                 okidx = np.flatnonzero(ok)
                 reason[okidx[bad]] = _CODE["singular"]
                 ok = reason == 0
-                curv = curvature_from_raw(g[ok], dg[ok], d2g[ok], extra_abs[ok]) \
-                    if ok.any() else None
+                curv = curvature_from_rows(raw[:, ok], extra_abs[ok]) if ok.any() else None
         return PointBatch(x=x, reason=reason, limit=limit & ok, curvature=curv)
 
     def _limit(self, x: np.ndarray, p: np.ndarray):

@@ -398,6 +398,23 @@ def test_worst_observers_attain_the_margins(rng):
     assert np.all(res.dec <= res.nec + tol)
 
 
+def test_shared_computation_agrees_with_each_condition_alone(rng):
+    """all_margins shares one eigen-decomposition and secular solve among the four
+    conditions (SEC's X has A's eigenvectors, shifted eigenvalues); each standalone
+    function solves its own problem. Same values to round-off, on plain, type II
+    (boosted) and vacuum-like tensors (derivation in the margins module)."""
+    plain = random_symmetric(rng, 200)
+    boosted, tol_b = in_frames(np.array([type_II(*rng.uniform(-1, 1, 4)) for _ in range(50)]),
+                               [boost(rng.uniform(0, 3), rng.normal(size=3)) for _ in range(50)])
+    tiny = 1e-30 * random_symmetric(rng, 20)
+    T = np.concatenate([plain, boosted, tiny])
+    tol = np.concatenate([tol_of(plain), tol_b, tol_of(tiny)])
+    res = all_margins(T)
+    alone = exact4(T)
+    for k, got in enumerate((res.nec, res.wec, res.sec, res.dec)):
+        assert np.all(np.abs(got - alone[k]) <= 2 * tol), ("NEC", "WEC", "SEC", "DEC")[k]
+
+
 def test_hard_case_of_the_secular_equation():
     """b orthogonal to the lowest eigenspace of A (the "hard case" of Moré &
     Sorensen 1983): ρ = 1, A = diag(−1, −1, 2), b = (0, 0, ½).
