@@ -24,7 +24,6 @@ import time
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import ndimage
 
 from . import __version__, units
 from .conditions.sampled import sampled_margins
@@ -546,6 +545,7 @@ def _chunks(metric, geometry, grid, bounds, check_mask, jobs, dask):
 
 def _regions(grid, violating, m, maps, integrate, spatial):
     """Connected violating regions (face connectivity), worst first."""
+    from scipy import ndimage     # imported here: not needed before the first chunk
     labels, n = ndimage.label(violating.reshape(grid.shape))
     if n == 0:
         return [], 0

@@ -107,19 +107,30 @@ def build_parser() -> argparse.ArgumentParser:
 
 def _load(args):
     from .metric import load_metric, parse_overrides
+    _check_points(args)
+    return load_metric(args.file, overrides=parse_overrides(args.set), points=args.points)
+
+
+def _check_points(args):
     if args.points is not None and args.points < 2:
         from .errors import UsageError
         raise UsageError(f"--points must be at least 2, got {args.points}")
-    return load_metric(args.file, overrides=parse_overrides(args.set), points=args.points)
+
+
+def _open(args):
+    """(metric, geometry); a repeat of the same input starts warm (auditor.warm)."""
+    from .warm import open_metric
+    _check_points(args)
+    return open_metric(args.file, set_items=args.set, points=args.points)
 
 
 def _cmd_probe(args) -> int:
     from .outputs import write_json
     from .probe import parse_event, probe
     from .textout import format_probe
-    metric = _load(args)
+    metric, geometry = _open(args)
     event = parse_event(metric, args.at)
-    result = probe(metric, event)
+    result = probe(metric, event, geometry)
     if args.json:
         write_json(result.to_json(), args.json)
     if args.json != "-":
@@ -143,9 +154,9 @@ def _cmd_check(args) -> int:
     from .outputs import write_json
     from .textout import format_audit
     require = _require(args.require)
-    metric = _load(args)
-    result = audit(metric, progress=False if args.quiet else None, jobs=args.jobs,
-                   dask=args.dask)
+    metric, geometry = _open(args)
+    result = audit(metric, geometry=geometry, progress=False if args.quiet else None,
+                   jobs=args.jobs, dask=args.dask)
     if args.json:
         write_json(result.to_json(), args.json)
     if args.json != "-":
@@ -158,8 +169,8 @@ def _cmd_report(args) -> int:
     from .outputs import write_json
     from .report import write_latex, write_report
     require = _require(args.require)
-    metric = _load(args)
-    result = audit(metric, progress=False if args.quiet else None)
+    metric, geometry = _open(args)
+    result = audit(metric, geometry=geometry, progress=False if args.quiet else None)
     command = "auditor " + shlex.join(args.argv)
     write_report(result, args.output, require=require, command=command)
     if args.json:
@@ -220,6 +231,32 @@ def _terminate_cleanly() -> None:
         pass
 
 
+def _process_age() -> float | None:
+    """Seconds since this process started (Linux /proc), else None."""
+    try:
+        with open("/proc/self/stat") as fh:
+            start_ticks = float(fh.read().rsplit(")", 1)[1].split()[19])
+        with open("/proc/uptime") as fh:
+            uptime = float(fh.read().split()[0])
+        return uptime - start_ticks / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError):
+        return None
+
+
+def _report_start_up() -> None:
+    """With AUDITOR_TIMINGS set: when the first event was evaluated, counted from
+    the start of the process (benchmarks/bench_startup.py reads this line)."""
+    import time
+    from .geometry.points import FIRST_EVALUATION
+    age = _process_age()
+    if FIRST_EVALUATION[0] is None or age is None:
+        return
+    first = age - (time.perf_counter() - FIRST_EVALUATION[0])
+    sympy = "imported" if "sympy" in sys.modules else "not imported"
+    sys.stderr.write(f"auditor: timings: first event evaluated {first:.3f} s after the "
+                     f"process started; SymPy {sympy}\n")
+
+
 def main(argv=None) -> int:
     parser = build_parser()
     _terminate_cleanly()
@@ -227,7 +264,10 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     args.argv = argv
     try:
-        return args.func(args)
+        code = args.func(args)
+        if os.environ.get("AUDITOR_TIMINGS"):
+            _report_start_up()
+        return code
     except AuditorError as exc:
         msg = str(exc).replace("\r", " ").replace("\n", " ")
         sys.stderr.write(f"auditor: error: {msg}\n")

@@ -6,11 +6,11 @@
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from typing import Mapping
 
 import numpy as np
-import sympy as sp
 
 from . import units
 from .conditions.hawking_ellis import TYPE_NAMES
@@ -18,7 +18,6 @@ from .errors import ExpressionError, PointError, UsageError
 from .crew.tidal import peak_accel_g
 from .geometry import Geometry
 from .geometry.points import REASONS
-from .metric.expr import parse_expression, suggest
 from .pointwise import CONDITIONS, analyse
 
 __all__ = ["ProbeResult", "probe", "parse_event", "split_assignments"]
@@ -96,12 +95,16 @@ def split_assignments(text: str) -> list[str]:
     return [p.strip() for p in parts if p.strip()]
 
 
+#: A plain decimal literal needs no expression parser.
+_PLAIN_NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
+
+
 def parse_event(metric, text: str, *, what: str = "--at") -> dict[str, float]:
     """Parse ``t=0,x=1.2,...`` into coordinate values (all four required).
 
     Values are expressions of the metric-file language; parameters may be used.
     """
-    params = {p: sp.Float(v) for p, v in metric.parameters.items()}
+    params = None
     others = {c: (f"coordinate '{c}' cannot be used in a value of {what}",
                   "values may use numbers, pi and the parameters") for c in metric.coordinates}
     out: dict[str, float] = {}
@@ -110,6 +113,7 @@ def parse_event(metric, text: str, *, what: str = "--at") -> dict[str, float]:
             raise UsageError(f"{what} expects NAME=VALUE pairs separated by commas, got '{item}'")
         name, value = (s.strip() for s in item.split("=", 1))
         if name not in metric.coordinates:
+            from .metric.expr import suggest
             close = suggest(name, metric.coordinates)
             raise UsageError(f"{what}: '{name}' is not a coordinate of {metric.name!r}"
                              + (f"; did you mean '{close}'?" if close else
@@ -117,8 +121,15 @@ def parse_event(metric, text: str, *, what: str = "--at") -> dict[str, float]:
         if name in out:
             raise UsageError(f"{what}: coordinate '{name}' given twice")
         try:
-            expr = parse_expression(value, params, key=what, unavailable=others)
-            val = float(expr)
+            if _PLAIN_NUMBER.match(value) and np.isfinite(float(value)):
+                val = float(value)
+            else:   # an expression of the metric-file language (needs SymPy)
+                import sympy as sp
+                from .metric.expr import parse_expression
+                if params is None:
+                    params = {p: sp.Float(v) for p, v in metric.parameters.items()}
+                expr = parse_expression(value, params, key=what, unavailable=others)
+                val = float(expr)
         except ExpressionError as exc:
             raise UsageError(f"{what} {name}: {exc.located}") from exc
         except (TypeError, ValueError) as exc:

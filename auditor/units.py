@@ -18,38 +18,48 @@ the conventional value g_n = 9.80665 m/s² (3rd CGPM, 1901).
 from __future__ import annotations
 
 import numpy as np
-from scipy import constants as _c
 
-__all__ = ["C_M_S", "G_SI", "G_STANDARD_M_S2", "energy_density_J_m3", "energy_J",
+__all__ = ["energy_density_J_m3", "energy_J",
            "energy_kg", "curvature_s2", "tidal_accel_m_s2", "accel_g", "time_s",
            "length_m", "proper_accel_m_s2"]
 
-#: Speed of light in vacuum, m/s (exact, SI 2019; scipy.constants.c).
-C_M_S: float = _c.c
-#: Newtonian constant of gravitation, m³ kg⁻¹ s⁻² (CODATA; scipy.constants.G).
-G_SI: float = _c.G
-#: Standard acceleration of gravity, m/s² (3rd CGPM 1901; scipy.constants.g).
-G_STANDARD_M_S2: float = _c.g
+# C_M_S: speed of light in vacuum, m/s (exact, SI 2019; scipy.constants.c).
+# G_SI: Newtonian constant of gravitation, m³ kg⁻¹ s⁻² (CODATA; scipy.constants.G).
+# G_STANDARD_M_S2: standard acceleration of gravity, m/s² (3rd CGPM 1901;
+# scipy.constants.g). Read from scipy.constants on first use (module
+# __getattr__): importing it takes a noticeable part of a warm start.
+_SCIPY_NAMES = {"C_M_S": "c", "G_SI": "G", "G_STANDARD_M_S2": "g"}
+
+
+def _k(name: str) -> float:
+    from scipy import constants
+    return float(getattr(constants, _SCIPY_NAMES[name]))
+
+
+def __getattr__(name):
+    if name in _SCIPY_NAMES:
+        return _k(name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def energy_density_J_m3(rho, length_m: float):
     """Geometric energy density (1/length²) to J/m³: ρ c⁴/(G L²)."""
-    return np.asarray(rho) * C_M_S**4 / (G_SI * length_m**2)
+    return np.asarray(rho) * _k("C_M_S")**4 / (_k("G_SI") * length_m**2)
 
 
 def energy_J(energy, length_m: float):
     """Geometric energy (length) to joules: E L c⁴/G."""
-    return np.asarray(energy) * length_m * C_M_S**4 / G_SI
+    return np.asarray(energy) * length_m * _k("C_M_S")**4 / _k("G_SI")
 
 
 def energy_kg(energy, length_m: float):
     """Geometric energy (length) to the equivalent mass in kg: E L c²/G."""
-    return np.asarray(energy) * length_m * C_M_S**2 / G_SI
+    return np.asarray(energy) * length_m * _k("C_M_S")**2 / _k("G_SI")
 
 
 def curvature_s2(value, length_m: float):
     """Geometric curvature component (1/length²) to s⁻²: E c²/L²."""
-    return np.asarray(value) * C_M_S**2 / length_m**2
+    return np.asarray(value) * _k("C_M_S")**2 / length_m**2
 
 
 def tidal_accel_m_s2(eigenvalue, length_m: float, body_length_m: float):
@@ -59,17 +69,17 @@ def tidal_accel_m_s2(eigenvalue, length_m: float, body_length_m: float):
 
 def proper_accel_m_s2(accel, length_m: float):
     """Geometric acceleration (1/length) to m/s²: a c²/L."""
-    return np.asarray(accel) * C_M_S**2 / length_m
+    return np.asarray(accel) * _k("C_M_S")**2 / length_m
 
 
 def accel_g(accel_m_s2):
     """Acceleration in standard g."""
-    return np.asarray(accel_m_s2) / G_STANDARD_M_S2
+    return np.asarray(accel_m_s2) / _k("G_STANDARD_M_S2")
 
 
 def time_s(tau, length_m: float):
     """Geometric time (length) to seconds: τ L / c."""
-    return np.asarray(tau) * length_m / C_M_S
+    return np.asarray(tau) * length_m / _k("C_M_S")
 
 
 def length_m(ell, length_m_per_unit: float):

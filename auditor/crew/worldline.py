@@ -32,12 +32,10 @@ under-reported.
 
 from __future__ import annotations
 
-import weakref
 from dataclasses import dataclass, field
 from itertools import combinations_with_replacement
 
 import numpy as np
-import sympy as sp
 from scipy.integrate import DOP853
 from scipy.linalg.lapack import dgesv as _dgesv
 from scipy.optimize import minimize_scalar
@@ -46,7 +44,7 @@ from .. import units
 from ..errors import PointError
 from ..frames import eulerian
 from ..frames.tetrads import _gram_schmidt
-from ..geometry.kernels import DIDX, GIDX, compile_scalars, smooth_rewrite
+from ..geometry.layout import DIDX, GIDX
 from ..geometry.points import REASONS
 from .limits import CAUTION
 from .tidal import tidal_tensor
@@ -206,37 +204,30 @@ class Worldline:
                 f"normalisation drift {fmt(j['normalisation_drift'], 2)}"]
 
 
-def _first_derivative_exprs(metric) -> list:
+def first_derivative_exprs(metric) -> list:
     """g_ab (a <= b) and ∂_c g_ab: the first 50 rows of the raw layout
     (DEVELOPERS.md, "Array layout": rows 10 + 10c + k hold ∂_c of the k-th
     pair a <= b) — the same expressions as ``metric_derivative_exprs(...)[:50]``
     without differentiating 100 second derivatives that the geodesic never uses."""
+    import sympy as sp
+    from ..geometry.kernels import smooth_rewrite
     g = metric.g.applyfunc(smooth_rewrite)
     comps = [g[a, b] for a, b in combinations_with_replacement(range(4), 2)]
     return comps + [sp.diff(gab, s) for s in metric.coord_symbols for gab in comps]
 
 
-#: Compiled first-derivative kernels, one per Geometry (parameters are kernel
-#: arguments, so a sweep that shares one Geometry compiles once).
-_KERNELS: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
-
-
-def _rhs_kernel(metric, geometry):
-    cached = _KERNELS.get(geometry)
-    if cached is not None and cached[0] is metric.g:
-        return cached[1]
-    kernel = compile_scalars(_first_derivative_exprs(metric), metric.coord_symbols,
-                             metric.param_symbols)
-    _KERNELS[geometry] = (metric.g, kernel)
-    return kernel
+def compile_first_derivatives(metric):
+    """The geodesic kernel of ``metric`` (50 rows; cached on disk like every kernel)."""
+    from ..geometry.kernels import compile_scalars
+    return compile_scalars(first_derivative_exprs(metric), metric.coord_symbols,
+                           metric.param_symbols)
 
 
 class _Rhs:
     """Geodesic right-hand side from a kernel of g and ∂g only (50 rows)."""
 
     def __init__(self, metric, params, kernel=None):
-        self.kernel = kernel if kernel is not None else compile_scalars(
-            _first_derivative_exprs(metric), metric.coord_symbols, metric.param_symbols)
+        self.kernel = kernel if kernel is not None else compile_first_derivatives(metric)
         self.p = np.asarray(params, dtype=float)
         self.out = np.empty(50)
 
@@ -377,7 +368,7 @@ def follow(metric, geometry, *, samples: int = SAMPLES) -> Worldline:
     u0 = gamma * (E[0, 0] + v @ E[0, 1:])
     lapse0 = 1.0 / np.sqrt(-curv.ginv[0, 0, 0])
 
-    rhs = _Rhs(metric, geometry.params(metric.parameters), _rhs_kernel(metric, geometry))
+    rhs = _Rhs(metric, geometry.params(metric.parameters), geometry.first_derivative_kernel())
     solver = DOP853(rhs, 0.0, np.concatenate([x0, u0]), crew.duration, rtol=RTOL, atol=ATOL,
                     max_step=crew.duration / samples)
     path = _Path(metric, geometry, lapse0)

@@ -1,8 +1,15 @@
 """Exact curvature: symbolic derivatives, compiled kernels, batch evaluation."""
 
 from .curvature import Curvature, curvature_from_raw
-from .kernels import compile_metric, compile_scalars
 from .points import DEFAULT_CHUNK, REASONS, Geometry, PointBatch
 
 __all__ = ["Curvature", "curvature_from_raw", "compile_metric", "compile_scalars",
            "DEFAULT_CHUNK", "REASONS", "Geometry", "PointBatch"]
+
+
+def __getattr__(name):
+    # The compilers need SymPy; importing them lazily keeps a warm start free of it.
+    if name in ("compile_metric", "compile_scalars"):
+        from . import kernels
+        return getattr(kernels, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

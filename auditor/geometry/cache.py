@@ -26,9 +26,9 @@ from pathlib import Path
 from typing import Callable
 
 import numpy as np
-import sympy as sp
 
-__all__ = ["cache_dir", "cache_key", "load_source", "store_source", "cached_source"]
+__all__ = ["cache_dir", "cache_key", "load_source", "store_source", "cached_source",
+           "secret_if_present", "store_text"]
 
 _HEADER = "# auditor-kernel hmac-sha256="
 _GENERATOR_HASH: str | None = None
@@ -65,6 +65,7 @@ def _generator_hash() -> str:
 
 def cache_key(kind: str, exprs) -> str:
     """Hash of the expression tree plus every version the generated code depends on."""
+    import sympy as sp
     from .. import __version__
     h = hashlib.sha256()
     for part in (kind, __version__, _generator_hash(), platform.python_version(),
@@ -134,27 +135,37 @@ def load_source(key: str, check: Callable[[str], None]) -> str | None:
     return source
 
 
-def store_source(key: str, source: str) -> None:
-    """Write ``source`` for ``key`` atomically with its HMAC (best effort)."""
-    folder = cache_dir()
-    if folder is None:
-        return
+def secret_if_present(folder: Path) -> bytes | None:
+    """The per-user HMAC key of ``folder`` (None if it is not trustworthy)."""
+    return _secret(folder)
+
+
+def store_text(folder: Path, name: str, make_text: Callable[[bytes], str]) -> None:
+    """Write ``make_text(secret)`` to ``folder/name`` atomically (best effort)."""
     secret = _secret(folder)
     if secret is None:
         return
-    text = f"{_HEADER}{_mac(secret, key, source)}\n{source}"
+    text = make_text(secret)
     tmp = None
     try:
         fd, tmp = tempfile.mkstemp(dir=folder, prefix=".kernel-", suffix=".part")
         with os.fdopen(fd, "w") as fh:
             fh.write(text)
-        os.replace(tmp, folder / f"{key}.py")
+        os.replace(tmp, folder / name)
     except OSError:
         if tmp is not None:
             try:
                 os.unlink(tmp)
             except OSError:
                 pass
+
+
+def store_source(key: str, source: str) -> None:
+    """Write ``source`` for ``key`` atomically with its HMAC (best effort)."""
+    folder = cache_dir()
+    if folder is None:
+        return
+    store_text(folder, f"{key}.py", lambda secret: f"{_HEADER}{_mac(secret, key, source)}\n{source}")
 
 
 def cached_source(kind: str, key_exprs, build: Callable[[], str],

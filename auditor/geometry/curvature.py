@@ -43,7 +43,7 @@ from itertools import combinations_with_replacement
 
 import numpy as np
 
-from .kernels import D2IDX, DIDX, GIDX
+from .layout import D2IDX, DIDX, GIDX
 
 __all__ = ["Curvature", "split_raw", "curvature_from_raw", "curvature_from_rows",
            "BIVECTORS", "R21", "bivector_weights"]

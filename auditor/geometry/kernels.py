@@ -20,37 +20,16 @@ holds ∂_c ∂_d g_ab.
 
 from __future__ import annotations
 
-import re
-from dataclasses import dataclass
-from itertools import combinations_with_replacement
-from typing import Callable, Sequence
+from typing import Sequence
 
-import numpy as np
 import sympy as sp
 from sympy.printing.numpy import NumPyPrinter
 
+from .compiled import MetricKernel, ScalarKernel, _check_source, _compile
+from .layout import D2IDX, DIDX, GIDX, N_RAW, PAIRS as _PAIRS
+
 __all__ = ["MetricKernel", "ScalarKernel", "compile_metric", "compile_scalars",
            "GIDX", "DIDX", "D2IDX", "N_RAW", "smooth_rewrite"]
-
-_PAIRS = list(combinations_with_replacement(range(4), 2))      # 10 (a <= b)
-
-GIDX = np.zeros((4, 4), dtype=np.intp)
-for _k, (_a, _b) in enumerate(_PAIRS):
-    GIDX[_a, _b] = GIDX[_b, _a] = _k
-DIDX = np.zeros((4, 4, 4), dtype=np.intp)
-D2IDX = np.zeros((4, 4, 4, 4), dtype=np.intp)
-_row = 10
-for _c in range(4):
-    for _k, (_a, _b) in enumerate(_PAIRS):
-        DIDX[_c, _a, _b] = DIDX[_c, _b, _a] = _row + 10 * _c + _k
-_row = 50
-for _m, (_c, _d) in enumerate(_PAIRS):
-    for _k, (_a, _b) in enumerate(_PAIRS):
-        for (cc, dd) in {(_c, _d), (_d, _c)}:
-            for (aa, bb) in {(_a, _b), (_b, _a)}:
-                D2IDX[cc, dd, aa, bb] = _row + 10 * _m + _k
-N_RAW = 150
-
 
 class StableTanh(sp.Function):
     """tanh whose derivative is sech² (SymPy's own is 1 − tanh², which loses all
@@ -105,42 +84,6 @@ def smooth_rewrite(expr: sp.Expr) -> sp.Expr:
                .replace(sp.cot, lambda a: 1 / sp.tan(a))
 
 
-_ALLOWED_NAME = re.compile(r"^(_c[0-3]|_p\d+|_t\d+|out|numpy|x|p|kernel)$")
-_NUMPY_ATTRS = {"sqrt", "exp", "log", "sin", "cos", "tan", "arcsin", "arccos", "arctan",
-                "arctan2", "sinh", "cosh", "tanh", "arcsinh", "arccosh", "arctanh", "pi", "e",
-                "errstate", "empty", "float64"}
-
-
-def _check_source(src: str) -> None:
-    """Refuse generated source that holds anything but our own names.
-
-    Every identifier must be an internal symbol, a CSE temporary, ``numpy``
-    or one of the whitelisted NumPy attributes. A guard against a future change
-    letting a user name through: it fails loudly instead of compiling.
-    """
-    if not src.isascii():
-        raise RuntimeError("generated source holds non-ASCII characters")
-    import io
-    import tokenize
-    try:
-        for tk in tokenize.generate_tokens(io.StringIO(src).readline):
-            if tk.type == tokenize.STRING and tk.string != "'ignore'":
-                raise RuntimeError(f"generated source holds a string literal {tk.string[:20]!r}")
-    except (tokenize.TokenError, SyntaxError) as exc:
-        raise RuntimeError(f"generated source does not tokenize: {exc}") from exc
-    for tok in re.findall(r"[A-Za-z_][A-Za-z_0-9]*(?:\.[A-Za-z_][A-Za-z_0-9]*)?", src):
-        if tok in ("def", "return", "with", "for", "in", "None", "range", "all", "ignore"):
-            continue
-        if tok.startswith("numpy."):
-            if tok[6:] not in _NUMPY_ATTRS:
-                raise RuntimeError(f"generated source uses numpy.{tok[6:]}")
-            continue
-        if re.fullmatch(r"\d*e", tok):  # exponent of a float literal like 1e-3
-            continue
-        if not _ALLOWED_NAME.match(tok):
-            raise RuntimeError(f"generated source holds an unexpected name {tok!r}")
-
-
 def _generate(exprs: Sequence[sp.Expr], coord_syms, param_syms) -> str:
     allowed = set(coord_syms) | set(param_syms)
     for e in exprs:
@@ -165,35 +108,6 @@ def _generate(exprs: Sequence[sp.Expr], coord_syms, param_syms) -> str:
     src = "\n".join(lines) + "\n"
     _check_source(src)
     return src
-
-
-def _compile(src: str) -> Callable:
-    namespace: dict = {"numpy": np, "__builtins__": {}}
-    code = compile(src, "<auditor-kernel>", "exec")
-    exec(code, namespace)  # noqa: S102 - source built from internal symbols only, checked above
-    return namespace["kernel"]
-
-
-@dataclass(frozen=True)
-class ScalarKernel:
-    """Vectorised evaluation of a list of expressions in the internal symbols."""
-
-    source: str
-    n_out: int
-    _fn: Callable
-
-    def __call__(self, x: np.ndarray, params: Sequence[float]) -> np.ndarray:
-        """``x`` is (4, N) coordinates; returns (n_out, N) float64."""
-        x = np.asarray(x, dtype=np.float64)
-        out = np.empty((self.n_out, x.shape[1]), dtype=np.float64)
-        p = np.asarray(params, dtype=np.float64)
-        self._fn(x, p, out)
-        return out
-
-
-@dataclass(frozen=True)
-class MetricKernel(ScalarKernel):
-    """The raw kernel of one metric: g, ∂g and ∂∂g (150 rows)."""
 
 
 def compile_scalars(exprs: Sequence[sp.Expr], coord_syms, param_syms, *,

@@ -16,11 +16,14 @@ the round-off estimate of the curvature, and the event is counted as
 
 from __future__ import annotations
 
+import time
 from dataclasses import dataclass
+
 import numpy as np
 
 from .curvature import Curvature, curvature_from_rows
-from .kernels import GIDX, MetricKernel, ScalarKernel, compile_metric, compile_scalars
+from .compiled import MetricKernel, ScalarKernel, kernel_from_source
+from .layout import GIDX, N_RAW
 
 __all__ = ["REASONS", "Geometry", "PointBatch", "DEFAULT_CHUNK"]
 
@@ -28,6 +31,9 @@ __all__ = ["REASONS", "Geometry", "PointBatch", "DEFAULT_CHUNK"]
 REASONS = ("singular", "degenerate", "not_lorentzian", "non_positive_lapse",
            "user_exclusion")
 _CODE = {r: i + 1 for i, r in enumerate(REASONS)}
+
+#: perf_counter() of the first kernel evaluation in this process (start-up figures).
+FIRST_EVALUATION: list = [None]
 
 #: Events per chunk: a chunk's temporaries (about 12 KiB per event for the
 #: rank-4 arrays and their einsum intermediates) stay near 50 MiB.
@@ -78,9 +84,26 @@ class Geometry:
 
     def __init__(self, metric, kernel: MetricKernel | None = None):
         self.metric = metric
-        self.kernel = kernel if kernel is not None else compile_metric(metric)
-        extras = []
+        # A metric restored from the start-up record (auditor.warm) carries the
+        # checked sources of its kernels; others are compiled (disk-cached).
+        sources = getattr(metric, "kernel_sources", None) or {}
+        self._geodesic: ScalarKernel | None = None
+        self._geodesic_source = sources.get("geodesic")
+        if kernel is None and sources.get("metric"):
+            kernel = kernel_from_source(sources["metric"], N_RAW, MetricKernel)
+        if kernel is None:
+            from .kernels import compile_metric
+            kernel = compile_metric(metric)
+        self.kernel = kernel
         self._lapse_row = self._exclude_row = None
+        if sources:
+            rows = sources.get("extras_rows", {})
+            self._lapse_row, self._exclude_row = rows.get("lapse"), rows.get("exclude")
+            src = sources.get("extras")
+            self.extras: ScalarKernel | None = (
+                kernel_from_source(src, sources["extras_n"]) if src else None)
+            return
+        extras = []
         if metric.lapse is not None:
             self._lapse_row = len(extras)
             extras.append(metric.lapse)
@@ -88,9 +111,29 @@ class Geometry:
         if region is not None and region.exclude is not None:
             self._exclude_row = len(extras)
             extras.append(region.exclude)
-        self.extras: ScalarKernel | None = (
-            compile_scalars(extras, metric.coord_symbols, metric.param_symbols)
-            if extras else None)
+        if extras:
+            from .kernels import compile_scalars
+            self.extras = compile_scalars(extras, metric.coord_symbols, metric.param_symbols)
+        else:
+            self.extras = None
+
+    def first_derivative_kernel(self) -> ScalarKernel:
+        """The geodesic kernel (g and ∂g, 50 rows), compiled on first use."""
+        if self._geodesic is None:
+            if self._geodesic_source:
+                self._geodesic = kernel_from_source(self._geodesic_source, 50)
+            else:
+                from ..crew.worldline import compile_first_derivatives
+                self._geodesic = compile_first_derivatives(self.metric)
+        return self._geodesic
+
+    def sources(self) -> dict:
+        """Sources of every kernel of this geometry (for the start-up record)."""
+        out = {"metric": self.kernel.source, "geodesic": self.first_derivative_kernel().source,
+               "extras": self.extras.source if self.extras is not None else None,
+               "extras_n": self.extras.n_out if self.extras is not None else 0,
+               "extras_rows": {"lapse": self._lapse_row, "exclude": self._exclude_row}}
+        return out
 
     def params(self, parameters=None) -> np.ndarray:
         values = self.metric.parameters if parameters is None else parameters
@@ -107,6 +150,8 @@ class Geometry:
         n = x.shape[0]
         p = self.params(parameters)
         raw = self.raw(x, p)
+        if FIRST_EVALUATION[0] is None:
+            FIRST_EVALUATION[0] = time.perf_counter()
         reason = np.zeros(n, dtype=np.int8)
         limit = np.zeros(n, dtype=bool)
         extra_abs = np.zeros(n)

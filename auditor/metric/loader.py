@@ -20,7 +20,7 @@ import sympy as sp
 
 from ..errors import MetricFileError, UsageError
 from .expr import CONSTANTS, FUNCTIONS, MAX_DEPTH, is_valid_name, parse_expression, suggest
-from .model import Crew, Definition, Metric, Region
+from .model import MAX_FILE_BYTES, Crew, Definition, Metric, Region
 
 __all__ = ["load_metric", "loads_metric", "parse_overrides", "DEFAULT_POINTS"]
 
@@ -35,8 +35,6 @@ _UNITS_KEYS = ("length_m",)
 _REGION_EXTRA = ("points", "exclude")
 _CREW_KEYS = ("body_length_m", "frame", "tidal_limit_g", "start", "velocity", "duration")
 _CREW_FRAMES = ("eulerian", "static")
-#: Largest file accepted, in bytes (a metric file is a page of text).
-MAX_FILE_BYTES = 1_000_000
 
 
 def load_metric(path: str | os.PathLike, *, overrides: Mapping[str, float] | None = None,

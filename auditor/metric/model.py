@@ -12,11 +12,15 @@ A :class:`Metric` holds two symbolic views of g_ab:
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Mapping
+from typing import TYPE_CHECKING, Mapping
 
-import sympy as sp
+if TYPE_CHECKING:
+    import sympy as sp
 
-__all__ = ["Metric", "Region", "Crew", "Definition"]
+__all__ = ["Metric", "Region", "Crew", "Definition", "MAX_FILE_BYTES"]
+
+#: Largest metric file accepted, in bytes (a metric file is a page of text).
+MAX_FILE_BYTES = 1_000_000
 
 
 @dataclass(frozen=True)
