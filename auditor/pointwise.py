@@ -88,7 +88,10 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
     out = PointFields(batch=batch, stress=T, t_tol=t_tol, frame_eulerian=eul, tetrad=E)
     out.tolerances = margin_tolerances(t_tol)
 
-    r = margins_with_observers(T)
+    # Where every component of T is within its round-off the margins cannot leave
+    # their tolerance (margins.margins_with_observers): the DEC search is skipped.
+    settled = np.abs(T).max(axis=(1, 2)) <= t_tol
+    r = margins_with_observers(T, settled=settled)
     for c in ("NEC", "WEC", "SEC"):
         out.margins[c], out.observers[c] = r[c][0], _to_coordinates(E, r[c][1])
     m, s1, s2 = r["DEC"]

@@ -517,15 +517,20 @@ def dec_margin(T, *, n_dirs: int = DEC_DIRECTIONS, n_starts: int = DEC_STARTS):
     return val * scale, s1, s2
 
 
-def _dec_search(rho, b, A, sphere, n_dirs=DEC_DIRECTIONS, n_starts=DEC_STARTS):
-    """DEC margin in scaled units from the NEC sphere solution of the same points."""
+def _dec_search(rho, b, A, sphere, n_dirs=DEC_DIRECTIONS, n_starts=DEC_STARTS, skip=None):
+    """DEC margin in scaled units from the NEC sphere solution of the same points.
+
+    Rows where ``skip`` is True keep the NEC pair's value (an upper bound)."""
     valN, sN, lam, Q, _, t = sphere
     # Where the dual bound is attained by the NEC pair (t ≥ λ1 + max|λ_i|,
     # module docstring) the NEC pair is DEC-optimal: no search needed.
     val = valN.copy()
     s1 = sN.copy()
     s2 = sN.copy()
-    todo = np.flatnonzero(t - lam[:, 0] < np.abs(lam).max(axis=1))
+    need = t - lam[:, 0] < np.abs(lam).max(axis=1)
+    if skip is not None:
+        need &= ~skip
+    todo = np.flatnonzero(need)
     for lo in range(0, todo.size, _DEC_CHUNK):     # blocks of points, not points
         rows = todo[lo:lo + _DEC_CHUNK]
         val[rows], s1[rows], s2[rows] = _dec_block(rho[rows], b[rows], A[rows], n_dirs,
@@ -581,10 +586,15 @@ def _four(v):
     return np.concatenate([np.ones(v.shape[:-1] + (1,)), v], axis=-1)
 
 
-def margins_with_observers(T, **dec_options):
+def margins_with_observers(T, *, settled=None, **dec_options):
     """All four margins with their worst observers' spatial parts, sharing work.
 
     Returns {"NEC": (m, s), "WEC": (m, w), "SEC": (m, w), "DEC": (m, s1, s2)}.
+    ``settled`` (N,) bool marks points where the caller has no use for the DEC
+    search (T below its round-off, say: every margin of a tensor whose
+    components are at most τ lies within ±(1 + 2√3 + 3)τ < 8τ, so the verdict
+    is "saturated" whatever the exact value); there the DEC margin is the NEC
+    pair's value, an upper bound within that same range.
     One eigen-decomposition of A and one secular solve serve all four: the
     WEC ball starts from the NEC sphere, DEC is certified by (or starts from)
     the NEC pair, and SEC's X = T − ½ (tr T) η has X_ij = A_ij − c δ_ij
@@ -607,7 +617,7 @@ def margins_with_observers(T, **dec_options):
     sphere_x = (_quad(x00, xb, xA, sN), sN, lam - c[:, None], Q, beta, t)
     vs, ws = _ball_min(x00, xb, xA, sphere_x)
     out["SEC"] = (vs * scale, ws)
-    vd, s1, s2 = _dec_search(rho, b, A, sphere, n_dirs, n_starts)
+    vd, s1, s2 = _dec_search(rho, b, A, sphere, n_dirs, n_starts, settled)
     out["DEC"] = (vd * scale, s1, s2)
     return out
 

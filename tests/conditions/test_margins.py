@@ -415,6 +415,27 @@ def test_shared_computation_agrees_with_each_condition_alone(rng):
         assert np.all(np.abs(got - alone[k]) <= 2 * tol), ("NEC", "WEC", "SEC", "DEC")[k]
 
 
+def test_settled_points_skip_the_dec_search_within_the_round_off_bound(rng):
+    """Where T is at its round-off τ (every |T_âb̂| ≤ τ), the DEC search may be
+    skipped: any margin of such a tensor lies within ±(1 + 2√3 + 3)τ < 8τ =
+    MARGIN_FACTOR·τ (|ρ| ≤ τ, |b| ≤ √3τ, ‖A‖₂ ≤ 3τ; derived in the margins
+    module), so the reported NEC-pair value (an upper bound of the exact DEC
+    margin) and the exact value give the same "saturated" verdict."""
+    from auditor.conditions.margins import margins_with_observers
+    from auditor.conditions.stress import MARGIN_FACTOR
+    T = random_symmetric(rng, 300)
+    T /= np.abs(T).max(axis=(1, 2))[:, None, None]          # τ = 1
+    exact = margins_with_observers(T)["DEC"][0]
+    skipped = margins_with_observers(T, settled=np.ones(len(T), bool))["DEC"][0]
+    assert np.all(np.abs(exact) < MARGIN_FACTOR) and np.all(np.abs(skipped) < MARGIN_FACTOR)
+    assert np.all(skipped >= exact - tol_of(T))
+    assert np.any(skipped > exact + 1e-3), "control: the search does change some values"
+    # Unsettled points are untouched.
+    half = np.arange(len(T)) % 2 == 0
+    mixed = margins_with_observers(T, settled=half)["DEC"][0]
+    assert np.array_equal(mixed[~half], exact[~half])
+
+
 def test_hard_case_of_the_secular_equation():
     """b orthogonal to the lowest eigenspace of A (the "hard case" of Moré &
     Sorensen 1983): ρ = 1, A = diag(−1, −1, 2), b = (0, 0, ½).
