@@ -5,7 +5,9 @@ g_ab (a <= b), their 40 first derivatives ∂_c g_ab and their 100 second
 derivatives ∂_c ∂_d g_ab (c <= d). Nothing is simplified. Common
 subexpressions of all 150 expressions are shared (``sympy.cse``) and printed
 as one NumPy function that fills a preallocated (150, N) array. Parameters are
-kernel arguments, so a parameter sweep compiles once.
+kernel arguments, so a parameter sweep compiles once. The size of the
+derivatives is estimated before they are built (:mod:`.size`), and a metric
+whose derivatives would be too large to build in reasonable time is refused.
 
 Safety: the expressions reaching the printer contain only the internal symbols
 ``_c0.._c3`` and ``_p0..`` built by :mod:`auditor.metric.loader` and functions
@@ -25,11 +27,14 @@ from typing import Sequence
 import sympy as sp
 from sympy.printing.numpy import NumPyPrinter
 
+from ..errors import MetricFileError
 from .compiled import MetricKernel, ScalarKernel, _check_source, _compile
 from .layout import D2IDX, DIDX, GIDX, N_RAW, PAIRS as _PAIRS
+from .size import MAX_DERIVATIVE_NODES, DerivativeSizes, about
 
 __all__ = ["MetricKernel", "ScalarKernel", "compile_metric", "compile_scalars",
            "GIDX", "DIDX", "D2IDX", "N_RAW", "smooth_rewrite"]
+
 
 class StableTanh(sp.Function):
     """tanh whose derivative is sech² (SymPy's own is 1 − tanh², which loses all
@@ -121,11 +126,29 @@ def compile_scalars(exprs: Sequence[sp.Expr], coord_syms, param_syms, *,
     return ScalarKernel(src, len(exprs), _compile(src))
 
 
-def metric_derivative_exprs(g: sp.MatrixBase, coord_syms) -> list[sp.Expr]:
-    """The 150 raw expressions: g_ab, ∂_c g_ab, ∂_c ∂_d g_ab (layout above)."""
+def metric_derivative_exprs(g: sp.MatrixBase, coord_syms, *,
+                            limit: int = MAX_DERIVATIVE_NODES,
+                            coordinates: Sequence[str] | None = None,
+                            path: str | None = None) -> list[sp.Expr]:
+    """The 150 raw expressions: g_ab, ∂_c g_ab, ∂_c ∂_d g_ab (layout above).
+
+    The size of the derivatives is estimated before they are built
+    (:mod:`.size`): that of the first derivatives from g, then that of the
+    second derivatives from the first. If the first, or the first and second
+    together, would exceed ``limit`` tree nodes, :class:`MetricFileError`
+    (``path``, key ``metric``) names the component of g with the largest share,
+    by the ``coordinates`` names (default: the internal symbols).
+    """
     g = g.applyfunc(smooth_rewrite)
     comps = [g[a, b] for a, b in _PAIRS]
+    sizes = DerivativeSizes(coord_syms)
+    names = [s.name for s in coord_syms] if coordinates is None else list(coordinates)
+    share = [sum(sizes.first(gab)) for gab in comps]
+    _bound(share, limit, "first derivatives", names, path)
     first = [[sp.diff(gab, coord_syms[c]) for gab in comps] for c in range(4)]
+    for k in range(10):
+        share[k] += sum(sizes.first(first[c][k])[d] for c, d in _PAIRS)
+    _bound(share, limit, "first and second derivatives", names, path)
     exprs = list(comps)
     for c in range(4):
         exprs.extend(first[c])
@@ -134,15 +157,33 @@ def metric_derivative_exprs(g: sp.MatrixBase, coord_syms) -> list[sp.Expr]:
     return exprs
 
 
+def _bound(share: list[int], limit: int, what: str, names, path) -> None:
+    """Refuse derivatives whose estimated size (``share``: per component, in
+    the order of ``_PAIRS``) exceeds ``limit`` in total."""
+    total = sum(share)
+    if total <= limit:
+        return
+    k = max(range(len(share)), key=share.__getitem__)
+    a, b = _PAIRS[k]
+    part = "all" if share[k] == total else f"~{about(share[k], 0)} of them"
+    raise MetricFileError(
+        f"the {what} of g would have ~{about(total, limit)} operations, more than the "
+        f"{limit} accepted ({part} from the component \"{names[a]} {names[b]}\"); "
+        "write that component in a simpler form", path=path, key="metric")
+
+
 def compile_metric(metric) -> MetricKernel:
     """Differentiate ``metric.g`` and compile the raw kernel (cached on disk).
 
     A cache hit skips differentiation and CSE entirely (see :mod:`.cache`).
+    A metric whose derivatives would be too large to build is refused first
+    (:func:`metric_derivative_exprs`).
     """
     from .cache import cached_source
 
     def build():
-        exprs = metric_derivative_exprs(metric.g, metric.coord_symbols)
+        exprs = metric_derivative_exprs(metric.g, metric.coord_symbols,
+                                        coordinates=metric.coordinates, path=metric.path)
         return _generate(exprs, metric.coord_symbols, metric.param_symbols)
 
     src = cached_source(f"metric:{len(metric.param_symbols)}", [metric.g], build, _check_source)
