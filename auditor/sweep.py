@@ -194,12 +194,17 @@ def sweep(metric, varies, *, points=None, overrides=None, jobs: int = 1, dask: s
     result.resumed = len(rows)
     overrides = dict(overrides or {})
     args = (metric.path, points, overrides)
-    jf = open(journal, "a") if journal else None
+    # Opened at the first finished combination: a sweep refused before any
+    # (a bad region, say) leaves no journal behind.
+    jf = None
     total = len(combos)
 
     def record(i, row):
+        nonlocal jf
         rows[i] = row
-        if jf:
+        if journal:
+            if jf is None:
+                jf = open(journal, "a")
             jf.write(json.dumps({"key": _combo_key(metric, points, combos[i]), "row": row}) + "\n")
             jf.flush()
         if progress:

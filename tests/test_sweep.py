@@ -139,6 +139,20 @@ def test_cli_sweep_bad_vary_is_one_line_exit_2(ds_file, tmp_path):
     assert not out.exists()
 
 
+def test_a_sweep_refused_before_any_combination_leaves_nothing(tmp_path):
+    """Every event excluded: exit 2, one line, and no table, plot or journal
+    (the journal is opened only when a combination has finished)."""
+    path = tmp_path / "all_out.toml"
+    path.write_text(DS.replace("[region]", "[region]\nexclude = \"1\""))
+    out = tmp_path / "s.csv"
+    proc = subprocess.run([sys.executable, "-m", "auditor", "sweep", str(path), "--vary",
+                           "Lambda=0.01:0.02:2", "-o", str(out), "--quiet"],
+                          capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 2, proc.stderr
+    assert proc.stderr.count("\n") == 1 and "no auditable event" in proc.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["all_out.toml"]
+
+
 def test_dask_cluster_gives_the_same_rows(ds_file):
     distributed = pytest.importorskip("distributed", reason="the dask extra is not installed")
     from auditor.metric import load_metric
