@@ -337,9 +337,9 @@ def naive_margins(T, rng, starts, dec_starts):
 def test_dec_on_nearly_isotropic_stresses(rng):
     """A = cI + 1e-4 noise with a large b: the DEC minima form a shallow ring and
     overshooting Newton steps used to stop the search up to 4e-5 max|T| above the
-    minimum. With backtracking the excess over a dense scan (an upper bound of the
-    true minimum, module docstring of margins) stays below 1e-5 max|T| (measured:
-    at most 8e-6 on 750 such tensors)."""
+    minimum. With backtracking the margin is not above a dense scan (an upper bound
+    of the true minimum, module docstring of margins) by more than 1e-7 max|T|
+    (measured during development: never above a 40 000-direction scan on 3000)."""
     n = 200
     T = random_symmetric(rng, n)
     c = rng.normal(size=n)
@@ -350,7 +350,7 @@ def test_dec_on_nearly_isotropic_stresses(rng):
     dense = np.array([(rho[i] + DENSE @ b[i] - np.linalg.norm(b[i] + DENSE @ A[i], axis=1)).min()
                       for i in range(n)])
     excess = (md - dense) / scale
-    assert excess.max() < 1e-5, excess.max()
+    assert excess.max() < 1e-7, excess.max()
 
 
 def test_against_naive_optimiser(rng):
