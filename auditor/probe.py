@@ -95,8 +95,22 @@ def split_assignments(text: str) -> list[str]:
     return [p.strip() for p in parts if p.strip()]
 
 
-#: A plain decimal literal needs no expression parser.
-_PLAIN_NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
+#: A plain ASCII decimal literal needs no expression parser when the parser would
+#: take it unchanged: zero, or a magnitude from 1e-300 to 1e300 (the bounds of
+#: metric.expr, MAX_LOG10); anything else goes through the parser, which refuses
+#: what a double cannot hold faithfully.
+_PLAIN_NUMBER = re.compile(r"^[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?$")
+_ZERO = re.compile(r"^[+-]?0*\.?0*([eE][+-]?[0-9]+)?$")
+
+
+def _plain_value(text: str) -> float | None:
+    """The value of a plain literal the parser would accept unchanged, else None."""
+    if not _PLAIN_NUMBER.match(text):
+        return None
+    v = float(text)
+    if v == 0.0:
+        return v if _ZERO.match(text) else None
+    return v if 1e-300 <= abs(v) <= 1e300 else None
 
 
 def parse_event(metric, text: str, *, what: str = "--at") -> dict[str, float]:
@@ -121,9 +135,8 @@ def parse_event(metric, text: str, *, what: str = "--at") -> dict[str, float]:
         if name in out:
             raise UsageError(f"{what}: coordinate '{name}' given twice")
         try:
-            if _PLAIN_NUMBER.match(value) and np.isfinite(float(value)):
-                val = float(value)
-            else:   # an expression of the metric-file language (needs SymPy)
+            val = _plain_value(value)
+            if val is None:   # an expression of the metric-file language (needs SymPy)
                 import sympy as sp
                 from .metric.expr import parse_expression
                 if params is None:

@@ -220,3 +220,24 @@ def test_the_restored_metric_loads_like_the_file(cache_dir, metric_file):
     assert warm.region.fixed == direct.region.fixed
     assert warm.crew == direct.crew
     assert Geometry(direct).kernel.source == warm.kernel_sources["metric"]
+
+
+@pytest.mark.parametrize("literal", ["2.5", ".5e1", "+3", "-0.0", "0e7", "1e-300", "1e300", "1e301",
+                                     "1e308",
+                                     "1e-400", "1e-310", "1e999", "\u0664", "1_000"])
+def test_plain_event_values_read_like_the_expression_language(literal):
+    """`probe --at` reads plain decimal literals without the parser (no SymPy on a
+    warm start); what it accepts and refuses must not differ from the parser's
+    reading of the same literal in parentheses (which always takes the parser)."""
+    from auditor.errors import UsageError
+    from auditor.probe import parse_event
+    metric = loads_metric(METRIC)
+
+    def read(text):
+        try:
+            return parse_event(metric, f"t=0,x={text},y=0,z=0")["x"]
+        except UsageError:
+            return "refused"
+
+    fast, parsed = read(literal), read(f"({literal})")
+    assert fast == parsed, (literal, fast, parsed)
