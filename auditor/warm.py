@@ -5,8 +5,8 @@ with SymPy), differentiates it and compiles its kernels. Once that succeeded,
 the validated description of the metric (everything but its symbolic forms)
 and the sources of its kernels are stored as a *start-up record* beside the
 kernel cache (:mod:`auditor.geometry.cache`). The record's key is a hash of:
-the file's bytes, the ``--set`` items and ``--points`` as given, and the
-versions of the tool, of the kernel generator, Python, NumPy and SymPy (read
+the file's bytes, the ``--set`` items and ``--points`` as given, the tool's
+own source files, and the versions of the tool, Python, NumPy and SymPy (read
 from the installed package metadata, without importing SymPy).
 
 A repeat run with the same key restores the :class:`~auditor.metric.Metric`
@@ -40,16 +40,20 @@ _SYMBOLIC = ("g", "g_display", "coord_symbols", "param_symbols", "user_symbols",
 
 
 def _versions() -> list[str]:
-    here = Path(__file__).resolve().parent / "geometry"
-    gen = hashlib.sha256()
-    for name in ("kernels.py", "compiled.py"):
-        gen.update((here / name).read_bytes())
+    """Everything a record depends on besides the input: the tool's own code (all
+    of it: the loader's checks are skipped on a warm start, so a change to any
+    of them must retire old records), Python, NumPy and SymPy."""
+    root = Path(__file__).resolve().parent
+    code = hashlib.sha256()
+    for path in sorted(root.rglob("*.py")):
+        code.update(str(path.relative_to(root)).encode() + b"\0")
+        code.update(path.read_bytes())
     try:
         sympy_version = metadata.version("sympy")
     except metadata.PackageNotFoundError:
         sympy_version = "?"
     import numpy as np
-    return [_FORMAT, __version__, gen.hexdigest(), platform.python_version(), np.__version__,
+    return [_FORMAT, __version__, code.hexdigest(), platform.python_version(), np.__version__,
             sympy_version]
 
 
@@ -98,10 +102,32 @@ class WarmMetric(Metric):
     def to_internal(self, expr):
         return self._full().to_internal(expr)
 
+    def __repr__(self) -> str:
+        return (f"WarmMetric(name={self.name!r}, path={self.path!r}, "
+                f"parameters={dict(self.parameters)!r})")
+
+    def __eq__(self, other):
+        # Equal to a metric loaded from the same input; compares symbolic fields too,
+        # so it builds them (SymPy) on first use.
+        if isinstance(other, WarmMetric):
+            other = other._full()
+        return self._full() == other if isinstance(other, Metric) else NotImplemented
+
+    __hash__ = None
+
     @property
     def full_region(self) -> Region | None:
         """The region with its symbolic exclusion (built on first use)."""
         return self._full().region
+
+
+class _WarmRegion(Region):
+    """A restored region: ``exclude`` (symbolic) is rebuilt on first use."""
+
+    @property
+    def exclude(self):
+        owner = self.__dict__.get("_owner")
+        return None if owner is None else owner._full().region.exclude
 
 
 def _lazy(name):
@@ -138,9 +164,12 @@ def _describe(metric: Metric) -> dict:
 
 def _restore(desc: dict, sources: dict, path: str, data: bytes, set_items, points) -> WarmMetric:
     r = desc["region"]
-    region = None if r is None else Region(
-        fixed=dict(r["fixed"]), axes={k: tuple(v) for k, v in r["axes"]}, points=dict(r["points"]),
-        exclude=None, exclude_text=r["exclude_text"])
+    region = None
+    if r is not None:
+        region = object.__new__(_WarmRegion)
+        for k, v in dict(fixed=dict(r["fixed"]), axes={k: tuple(v) for k, v in r["axes"]},
+                         points=dict(r["points"]), exclude_text=r["exclude_text"]).items():
+            object.__setattr__(region, k, v)
     c = desc["crew"]
     crew = Crew(body_length_m=c["body_length_m"], frame=c["frame"],
                 tidal_limit_g=c["tidal_limit_g"],
@@ -157,6 +186,8 @@ def _restore(desc: dict, sources: dict, path: str, data: bytes, set_items, point
                   _points=points)
     for k, v in fields.items():
         object.__setattr__(m, k, v)
+    if region is not None:
+        object.__setattr__(region, "_owner", m)
     return m
 
 
@@ -165,7 +196,7 @@ def _mac(secret: bytes, key: str, text: str) -> str:
 
 
 def _load_record(key: str) -> dict | None:
-    from .geometry.cache import cache_dir, secret_if_present
+    from .geometry.cache import cache_dir, secret_for
     folder = cache_dir()
     if folder is None:
         return None
@@ -174,7 +205,7 @@ def _load_record(key: str) -> dict | None:
     except (OSError, UnicodeDecodeError):
         return None
     head, _, body = text.partition("\n")
-    secret = secret_if_present(folder)
+    secret = secret_for(folder)
     if secret is None or not hmac.compare_digest(head, _mac(secret, key, body)):
         return None
     try:
@@ -194,13 +225,14 @@ def _store_record(key: str, record: dict) -> None:
 
 
 def _read(path: str) -> bytes | None:
+    """The file's bytes if it is a readable file within the size limit, else None
+    (the full loader then reports what is wrong)."""
     try:
-        if os.path.getsize(path) > MAX_FILE_BYTES:
-            return None
         with open(path, "rb") as fh:
-            return fh.read()
+            data = fh.read(MAX_FILE_BYTES + 1)
     except OSError:
         return None
+    return data if len(data) <= MAX_FILE_BYTES else None
 
 
 def open_metric(path, *, set_items=(), points=None):
@@ -217,8 +249,8 @@ def open_metric(path, *, set_items=(), points=None):
                 metric = _restore(record["metric"], record["kernels"], path, data, set_items,
                                   points)
                 return metric, Geometry(metric)
-            except (KeyError, TypeError, ValueError, RuntimeError, SyntaxError):
-                pass        # a damaged or foreign record: take the full path
+            except Exception:   # noqa: BLE001 - a damaged record: take the full path
+                pass
     from .metric.loader import load_metric, loads_metric, parse_overrides
     overrides = parse_overrides(list(set_items or []))
     if data is None:

@@ -2,7 +2,8 @@
 
 Key: SHA-256 of the kind of kernel, the normalised expression tree
 (``sympy.srepr`` of expressions in internal symbols), and the versions of the
-tool, of the kernel generator (the hash of ``kernels.py`` itself), Python,
+tool, of the kernel generator (the hash of ``kernels.py``, ``compiled.py`` and
+``layout.py``), Python,
 NumPy and SymPy. A parameter is a kernel argument, so a sweep compiles once.
 
 Files live in a per-user folder (``$AUDITOR_CACHE_DIR``, else
@@ -28,7 +29,7 @@ from typing import Callable
 import numpy as np
 
 __all__ = ["cache_dir", "cache_key", "load_source", "store_source", "cached_source",
-           "secret_if_present", "store_text"]
+           "secret_for", "store_text"]
 
 _HEADER = "# auditor-kernel hmac-sha256="
 _GENERATOR_HASH: str | None = None
@@ -58,8 +59,11 @@ def cache_dir() -> Path | None:
 def _generator_hash() -> str:
     global _GENERATOR_HASH
     if _GENERATOR_HASH is None:
-        src = Path(__file__).with_name("kernels.py").read_bytes()
-        _GENERATOR_HASH = hashlib.sha256(src).hexdigest()
+        # Everything that shapes generated source or how its rows are read.
+        h = hashlib.sha256()
+        for name in ("kernels.py", "compiled.py", "layout.py"):
+            h.update(Path(__file__).with_name(name).read_bytes())
+        _GENERATOR_HASH = h.hexdigest()
     return _GENERATOR_HASH
 
 
@@ -135,8 +139,9 @@ def load_source(key: str, check: Callable[[str], None]) -> str | None:
     return source
 
 
-def secret_if_present(folder: Path) -> bytes | None:
-    """The per-user HMAC key of ``folder`` (None if it is not trustworthy)."""
+def secret_for(folder: Path) -> bytes | None:
+    """The per-user HMAC key of ``folder``, created if missing (None if the
+    existing one is not trustworthy)."""
     return _secret(folder)
 
 

@@ -128,8 +128,19 @@ class Geometry:
         return self._geodesic
 
     def sources(self) -> dict:
-        """Sources of every kernel of this geometry (for the start-up record)."""
-        out = {"metric": self.kernel.source, "geodesic": self.first_derivative_kernel().source,
+        """Sources of this geometry's kernels (for the start-up record). The
+        geodesic kernel is included when built already or when the metric has a
+        crew worldline to follow; if it cannot be built it is left out (a warm
+        run then builds it on first use)."""
+        geodesic = self._geodesic
+        if geodesic is None and self._geodesic_source is None and \
+                getattr(self.metric.crew, "start", None) is not None:
+            try:
+                geodesic = self.first_derivative_kernel()
+            except Exception:    # noqa: BLE001 - reported where the worldline needs it
+                geodesic = None
+        out = {"metric": self.kernel.source,
+               "geodesic": geodesic.source if geodesic is not None else self._geodesic_source,
                "extras": self.extras.source if self.extras is not None else None,
                "extras_n": self.extras.n_out if self.extras is not None else 0,
                "extras_rows": {"lapse": self._lapse_row, "exclude": self._exclude_row}}

@@ -51,7 +51,10 @@ def load_metric(path: str | os.PathLike, *, overrides: Mapping[str, float] | Non
             raise MetricFileError(f"file is {size} bytes, more than the {MAX_FILE_BYTES} accepted",
                                   path=path)
         with open(path, "rb") as fh:
-            data = fh.read()
+            data = fh.read(MAX_FILE_BYTES + 1)   # a growing file or a pipe stops here
+        if len(data) > MAX_FILE_BYTES:
+            raise MetricFileError(f"file is more than the {MAX_FILE_BYTES} bytes accepted",
+                                  path=path)
     except MetricFileError:
         raise
     except IsADirectoryError as exc:

@@ -74,6 +74,8 @@ def test_the_second_open_is_warm_and_equal(cache_dir, metric_file):
     for name in ("name", "coordinates", "parameters", "form", "metric_text", "length_m",
                  "summary", "source", "path", "sha256", "crew"):
         assert getattr(warm, name) == getattr(cold, name), name
+    # Parameter order is the order of kernel arguments.
+    assert list(warm.parameters.items()) == list(cold.parameters.items())
     assert warm.region.axes == cold.region.axes and warm.region.points == cold.region.points
     assert warm.region.exclude_text == cold.region.exclude_text
     # The same kernels, bit for bit, including the exclusion and the geodesic kernel.
@@ -88,6 +90,8 @@ def test_the_second_open_is_warm_and_equal(cache_dir, metric_file):
     assert warm.g == cold.g and warm.g_display == cold.g_display
     assert [d.name for d in warm.definitions] == ["f"]
     assert warm.full_region.exclude == cold.region.exclude
+    assert warm.region.exclude == cold.region.exclude      # rebuilt on first use, not None
+    assert "WarmMetric" in repr(warm) and warm == cold
     # Parameters change without leaving the warm path.
     moved = warm.with_parameters(a=0.25)
     assert isinstance(moved, WarmMetric) and moved.parameters["a"] == 0.25
@@ -241,3 +245,26 @@ def test_plain_event_values_read_like_the_expression_language(literal):
 
     fast, parsed = read(literal), read(f"({literal})")
     assert fast == parsed, (literal, fast, parsed)
+
+
+def test_a_warm_audit_equals_the_cold_one_with_lapse_exclusion_and_crew(cache_dir, tmp_path):
+    """The ADM wormhole (lapse row, crew start and velocity followed as a worldline)
+    with an exclusion and a --set: the warm run gives the same audit, bit for bit."""
+    from auditor.audit import audit
+    from auditor.outputs import dumps_json
+    text = (SAMPLES / "morris_thorne_wormhole.toml").read_text()
+    text = text.replace("[region]", '[region]\nexclude = "0.25 - l**2"', 1)
+    path = tmp_path / "wormhole.toml"
+    path.write_text(text)
+    results = []
+    for expect_warm in (False, True):
+        metric, geo = open_metric(path, set_items=["a=0.3"], points=7)
+        assert geo._lapse_row is not None and geo._exclude_row is not None
+        assert isinstance(metric, WarmMetric) is expect_warm
+        assert metric.crew.start is not None and metric.crew.velocity is not None
+        data = audit(metric, geometry=geo, progress=False).to_json()
+        data.pop("timing", None)
+        results.append(json.loads(dumps_json(data)))
+    assert results[0]["excluded_by_reason"]["user_exclusion"] > 0
+    assert results[0]["crew"]["proper_time"] > 0
+    assert results[0] == results[1]
