@@ -616,10 +616,12 @@ def margins_with_observers(T, *, settled=None, **dec_options):
 
     Returns {"NEC": (m, s), "WEC": (m, w), "SEC": (m, w), "DEC": (m, s1, s2)}.
     ``settled`` (N,) bool marks points where the caller has no use for the DEC
-    search (T below its round-off, say: every margin of a tensor whose
-    components are at most τ lies within ±(1 + 2√3 + 3)τ < 8τ, so the verdict
-    is "saturated" whatever the exact value); there the DEC margin is the NEC
-    pair's value, an upper bound within that same range.
+    search (T below its round-off, say: if every |T_âb̂| ≤ τ, the NEC, WEC and
+    DEC quantities are at most |ρ| + 2|b| + ‖A‖₂ ≤ (1 + 2√3 + 3)τ in size and
+    the SEC one, T(u,u) + ½ tr T (1 − |w|²), at most (3 + 2√3 + 1)τ, all below
+    8τ, so the verdict is "saturated" whatever the exact value); there the DEC
+    margin and its worst pair are the NEC pair's, an upper bound within that
+    same range.
     One eigen-decomposition of A and one secular solve serve all four: the
     WEC ball starts from the NEC sphere, DEC is certified by (or starts from)
     the NEC pair, and SEC's X = T − ½ (tr T) η has X_ij = A_ij − c δ_ij

@@ -106,7 +106,6 @@ _RIC_ROWS = np.array([[_FULL_ROWS[64 * a + 16 * b + 4 * c + d] for a in range(4)
                        for c in range(4)] for (b, d) in _PAIRS])
 _RIC_SIGN = np.array([[_FULL_SIGN[64 * a + 16 * b + 4 * c + d] for a in range(4)
                        for c in range(4)] for (b, d) in _PAIRS])
-_RIC_G = np.array([[GIDX[a, c] for a in range(4) for c in range(4)] for _ in _PAIRS])
 
 
 def bivector_weights(E: np.ndarray, absolute: bool = False) -> np.ndarray:
