@@ -431,8 +431,15 @@ def _dec_newton(rho, b, A, s1, s2, F, iters):
 
 def _cf_partner(b, A, s, prev):
     """Component-first ``_partner``: b, s, prev (3, M), A (3, 3, M)."""
-    r = b + A[:, 0] * s[0] + A[:, 1] * s[1] + A[:, 2] * s[2]
+    r = A[:, 0] * s[0]
+    r += A[:, 1] * s[1]
+    r += A[:, 2] * s[2]
+    r += b
     nr = np.sqrt(r[0] * r[0] + r[1] * r[1] + r[2] * r[2])
+    if nr.all():
+        r /= nr
+        np.negative(r, out=r)
+        return r
     ok = nr > 0
     return np.where(ok, -r / np.where(ok, nr, 1.0), prev)
 
