@@ -89,14 +89,34 @@ class ConditionSummary:
     region_count: int
     cross_check: dict
     core_violating_volume: float | list | None = None   # where margin < CORE_FRACTION·min
+    min_margin_tolerance: float | None = None    # round-off of min_margin at worst_point
+    refined_tolerance: float | None = None       # round-off at refined_worst_point
+
+    @property
+    def refined_holds(self) -> bool | None:
+        """Refined margin >= −its tolerance (None without a refinement)."""
+        if self.refined_min_margin is None or self.refined_tolerance is None:
+            return None
+        return bool(self.refined_min_margin >= -self.refined_tolerance)
+
+    @property
+    def refined_saturated(self) -> bool | None:
+        """|refined margin| <= its tolerance: zero within round-off (None without one)."""
+        if self.refined_min_margin is None or self.refined_tolerance is None:
+            return None
+        return bool(abs(self.refined_min_margin) <= self.refined_tolerance)
 
     def to_json(self, spatial: bool, length_m: float | None = None) -> dict:
         out = {
             "holds": self.holds, "saturated_fraction": self.saturated_fraction,
             "violating_fraction": self.violating_fraction,
             "min_margin": self.min_margin, "worst_point": self.worst_point,
+            "min_margin_tolerance": self.min_margin_tolerance,
             "refined_min_margin": self.refined_min_margin,
             "refined_worst_point": self.refined_worst_point,
+            "refined_tolerance": self.refined_tolerance,
+            "refined_holds": self.refined_holds,
+            "refined_saturated": self.refined_saturated,
             "region_count": self.region_count,
             "regions": [],
             "cross_check": self.cross_check,
@@ -323,16 +343,19 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
 
     spatial = grid.spatial_sampled
     worsts = {c: acc.worst_index(c) for c in CONDITIONS}
+    grid_tol = {c: float(margin_tolerances(maps["tol_T"][worsts[c]:worsts[c] + 1])[c][0])
+                for c in CONDITIONS}
     refined = {}
     if refine:
         refined = _refine_all(geometry, metric, grid, worsts,
-                              {c: float(maps["margin_" + c][worsts[c]]) for c in CONDITIONS})
+                              {c: float(maps["margin_" + c][worsts[c]]) for c in CONDITIONS},
+                              grid_tol)
     conditions = {}
     for c in CONDITIONS:
         worst = worsts[c]
         min_margin = float(maps["margin_" + c][worst])
         summary_regions, n_regions = _regions(grid, maps, c, acc.per_time)
-        refined_m, refined_pt = refined.get(c, (None, None))
+        refined_m, refined_pt, refined_tol = refined.get(c, (None, None, None))
         core = _core_volume(grid, maps, c, CORE_FRACTION * min_margin, acc.per_time) \
             if spatial else None
         conditions[c] = ConditionSummary(
@@ -344,7 +367,8 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
             refined_min_margin=refined_m, refined_worst_point=refined_pt,
             volume_integral=acc.result(acc.volume_integral[c]) if spatial else None,
             regions=tuple(summary_regions), region_count=n_regions,
-            cross_check=acc.cross_check(c), core_violating_volume=core)
+            cross_check=acc.cross_check(c), core_violating_volume=core,
+            min_margin_tolerance=grid_tol[c], refined_tolerance=refined_tol)
         maps.stored["cross_" + c] = acc.cross[c]
 
     energy = None
@@ -838,7 +862,7 @@ def _regions(grid, maps, c, per_time):
     return out, int(n)
 
 
-def _refine_all(geometry, metric, grid, worst: dict, start_values: dict,
+def _refine_all(geometry, metric, grid, worst: dict, start_values: dict, start_tols: dict,
                 levels: int = REFINE_LEVELS, per_axis: int = REFINE_PER_AXIS):
     """Local minimisation of each margin on the exact kernels, from its grid minimum.
 
@@ -848,7 +872,10 @@ def _refine_all(geometry, metric, grid, worst: dict, start_values: dict,
     smaller... for ``levels`` rounds (all conditions share one batch per round).
     The final box is (2/(per_axis-1))**levels of a grid spacing across; for a
     smooth minimum the error of the refined value is quadratic in that.
-    Returns {cond: (value, event)}; never worse than the grid value.
+    Returns {cond: (value, event, tolerance)}, the tolerance being the margin's
+    round-off at that event (from :func:`~auditor.pointwise.analyse`, or
+    ``start_tols`` where the grid event stays the best); never worse than the
+    grid value.
     """
     axes = [metric.coordinates.index(n) for n in grid.axis_names]
     spacing = np.array([v[1] - v[0] for v in grid.axis_values])
@@ -856,7 +883,7 @@ def _refine_all(geometry, metric, grid, worst: dict, start_values: dict,
     hi = np.array([v[-1] for v in grid.axis_values])
     conds = list(worst)
     centre = {c: grid.events(worst[c], worst[c] + 1)[0] for c in conds}
-    best = {c: (start_values[c], centre[c].copy()) for c in conds}
+    best = {c: (start_values[c], centre[c].copy(), start_tols[c]) for c in conds}
     half = spacing.copy()
     offs = np.linspace(-1.0, 1.0, per_axis)
     mesh = np.stack(np.meshgrid(*([offs] * len(axes)), indexing="ij"), -1).reshape(-1, len(axes))
@@ -880,10 +907,10 @@ def _refine_all(geometry, metric, grid, worst: dict, start_values: dict,
             j = int(np.argmin(vals))
             pt = x_all[okidx[sel][j]]
             if vals[j] < best[c][0]:
-                best[c] = (float(vals[j]), pt.copy())
+                best[c] = (float(vals[j]), pt.copy(), float(f.tolerances[c][sel][j]))
             centre[c] = best[c][1].copy()
         half = half * 2.0 / (per_axis - 1)
     snap = 1e-9 * spacing.max()   # zoom arithmetic leaves ~1e-16 where the minimum is at 0
     return {c: (best[c][0], {n: (0.0 if abs(v) < snap else float(v))
-                             for n, v in zip(metric.coordinates, best[c][1])})
+                             for n, v in zip(metric.coordinates, best[c][1])}, best[c][2])
             for c in conds}
