@@ -174,6 +174,7 @@ class TidalSummary:
     levels: tuple
     undefined_points: int
     noise_floor_g: float | None = None
+    peak_index: int | None = None     # flat grid index of peak_point (for the figures)
 
     def to_json(self) -> dict:
         return {
@@ -211,7 +212,8 @@ class StationSummary:
 
 @dataclass
 class AuditResult:
-    """Everything an audit found. ``maps`` holds per-event arrays in grid shape."""
+    """Everything an audit found. ``maps`` (:class:`ResultMaps`) holds per-event
+    arrays, flat in the grid's C order."""
 
     metric: object
     grid: Grid
@@ -225,7 +227,7 @@ class AuditResult:
     energy: EnergyBudget | None
     tidal: TidalSummary
     he_type_counts: dict
-    maps: dict = field(repr=False, default_factory=dict)
+    maps: Mapping = field(repr=False, default_factory=dict)
     crew: object | None = None
     station: object | None = None
     seconds: float = 0.0
@@ -617,7 +619,7 @@ class _Reduction:
         frac = {l.key: float(t["above"][l.key] / t["defined"]) for l in levels}
         return TidalSummary(cfg.frame, cfg.body_length_m, peak, self.grid.event(where), eigs,
                             frac, levels, t["undefined"],
-                            float("nan") if t["floor"] is None else t["floor"])
+                            float("nan") if t["floor"] is None else t["floor"], where)
 
     def station_summary(self) -> StationSummary:
         s = self.station
