@@ -59,6 +59,10 @@ REFINE_LEVELS, REFINE_PER_AXIS = 5, 7
 #: and, while one condition's regions are labelled, its bool mask and int32
 #: labels (5). benchmarks/bench_memory.py measures the whole process.
 BYTES_PER_EVENT = 72
+#: Memory an audit needs beside its maps, bytes: a chunk's temporaries (see
+#: geometry.points.DEFAULT_CHUNK), the cross-check, the refinement and the crew
+#: worldline; about 160 MiB measured (benchmarks/bench_memory.py), with headroom.
+WORKING_BYTES = 256 << 20
 #: Largest grid accepted in one audit (events): its maps then take about 2 GiB
 #: (BYTES_PER_EVENT) and one process evaluates it in about an hour.
 MAX_GRID_POINTS = 30_000_000
@@ -317,10 +321,10 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
     if size > MAX_GRID_POINTS:
         raise UsageError(f"the region has {size} events, more than the {MAX_GRID_POINTS} "
                          "one audit accepts; lower region.points or --points")
-    need = size * BYTES_PER_EVENT
+    need = size * BYTES_PER_EVENT + WORKING_BYTES
     avail = _available_memory()
     if avail is not None and need > 0.8 * avail:
-        raise UsageError(f"the region has {size} events; its result maps need about "
+        raise UsageError(f"the region has {size} events; its audit needs about "
                          f"{need / 2**30:.1f} GiB but {avail / 2**30:.1f} GiB are available; "
                          "lower region.points or --points")
     if progress is None:
