@@ -22,6 +22,8 @@ from auditor.pointwise import CONDITIONS, margin_tolerances
 from ..conftest import SAMPLES_DIR
 
 SMALL_CHUNK = 257
+#: So small that chunks hold one cross-check event, or none.
+TINY_CHUNK = 7
 
 
 def _same_maps(a, b):
@@ -49,8 +51,9 @@ CASES = {"bubble": ("tanh_wall_bubble", 13), "schwarzschild": ("schwarzschild", 
          "bubble, time sampled": (None, None)}
 
 
-@pytest.mark.parametrize("case", list(CASES))
-def test_small_chunks_give_identical_results(case, geometry_cache):
+@pytest.mark.parametrize("case, chunk", [(c, SMALL_CHUNK) for c in CASES]
+                         + [("bubble", TINY_CHUNK)])
+def test_small_chunks_give_identical_results(case, chunk, geometry_cache):
     stem, points = CASES[case]
     if stem is None:
         text = _bubble_in_time()
@@ -58,10 +61,10 @@ def test_small_chunks_give_identical_results(case, geometry_cache):
     else:
         metric = load_metric(SAMPLES_DIR / f"{stem}.toml", points=points)
         geometry = geometry_cache.sample(stem)
-    assert Grid.from_region(metric).size > 4 * SMALL_CHUNK
+    assert Grid.from_region(metric).size > 4 * chunk
     big = audit(metric, geometry=geometry, crew=False, progress=False)
-    small = audit(metric, geometry=geometry, crew=False, progress=False, chunk=SMALL_CHUNK)
-    assert DEFAULT_CHUNK != SMALL_CHUNK
+    small = audit(metric, geometry=geometry, crew=False, progress=False, chunk=chunk)
+    assert DEFAULT_CHUNK != chunk
     # verdicts, minima, worst points (grid and refined), regions, energies, tides: all of it
     assert json.dumps(big.to_json(), sort_keys=True) == json.dumps(small.to_json(), sort_keys=True)
     _same_maps(big.maps, small.maps)
