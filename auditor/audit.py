@@ -21,6 +21,7 @@ from __future__ import annotations
 import os
 import sys
 import time
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -32,10 +33,11 @@ from .crew.tidal import peak_accel_g
 from .errors import NoAuditablePointError, UsageError
 from .geometry import DEFAULT_CHUNK, REASONS, Geometry
 from .grid import Grid
-from .pointwise import CONDITIONS, analyse
+from .pointwise import CONDITIONS, analyse, margin_tolerances
+from .sums import ExactSum
 
-__all__ = ["audit", "AuditResult", "ConditionSummary", "ViolatingRegion", "EnergyBudget",
-           "TidalSummary", "MAX_REGIONS", "CROSS_CHECK_POINTS"]
+__all__ = ["audit", "AuditResult", "ResultMaps", "ConditionSummary", "ViolatingRegion",
+           "EnergyBudget", "TidalSummary", "MAX_REGIONS", "CROSS_CHECK_POINTS"]
 
 #: Regions listed per condition (largest violations first); the count is always given.
 MAX_REGIONS = 50
@@ -50,10 +52,19 @@ CROSS_CHECK_DIRECTIONS = 200
 CORE_FRACTION = 0.01
 #: Zoom rounds and samples per axis of the local refinement of minimum margins.
 REFINE_LEVELS, REFINE_PER_AXIS = 5, 7
-#: Memory held per event by the result maps (about 25 float64/int8 arrays), bytes.
-BYTES_PER_EVENT = 200
-#: Largest grid accepted in one audit (events): beyond it memory for the maps
-#: of results exceeds a few GiB.
+#: Memory held per event until the audit returns, bytes: the stored maps of
+#: :class:`ResultMaps` (four float64 margins, tol_T, weight and rho: 56; float32
+#: tidal and station loads: 8; reason, Hawking–Ellis type, Eulerian flag: 3),
+#: and, while one condition's regions are labelled, its bool mask and int32
+#: labels (5). benchmarks/bench_memory.py measures the whole process.
+BYTES_PER_EVENT = 72
+#: Memory an audit needs beside its maps, bytes: a chunk's temporaries (see
+#: geometry.points.DEFAULT_CHUNK), the cross-check, the refinement and the crew
+#: worldline; about 160 MiB measured (benchmarks/bench_memory.py), with headroom.
+WORKING_BYTES = 256 << 20
+#: Largest grid accepted in one audit (events): its maps then take about 2 GiB
+#: (BYTES_PER_EVENT), and one process needs hours for it (the tanh-wall bubble
+#: runs at about 4000 events/s on one core).
 MAX_GRID_POINTS = 30_000_000
 
 
@@ -82,14 +93,34 @@ class ConditionSummary:
     region_count: int
     cross_check: dict
     core_violating_volume: float | list | None = None   # where margin < CORE_FRACTION·min
+    min_margin_tolerance: float | None = None    # round-off of min_margin at worst_point
+    refined_tolerance: float | None = None       # round-off at refined_worst_point
+
+    @property
+    def refined_holds(self) -> bool | None:
+        """Refined margin >= −its tolerance (None without a refinement)."""
+        if self.refined_min_margin is None or self.refined_tolerance is None:
+            return None
+        return bool(self.refined_min_margin >= -self.refined_tolerance)
+
+    @property
+    def refined_saturated(self) -> bool | None:
+        """|refined margin| <= its tolerance: zero within round-off (None without one)."""
+        if self.refined_min_margin is None or self.refined_tolerance is None:
+            return None
+        return bool(abs(self.refined_min_margin) <= self.refined_tolerance)
 
     def to_json(self, spatial: bool, length_m: float | None = None) -> dict:
         out = {
             "holds": self.holds, "saturated_fraction": self.saturated_fraction,
             "violating_fraction": self.violating_fraction,
             "min_margin": self.min_margin, "worst_point": self.worst_point,
+            "min_margin_tolerance": self.min_margin_tolerance,
             "refined_min_margin": self.refined_min_margin,
             "refined_worst_point": self.refined_worst_point,
+            "refined_tolerance": self.refined_tolerance,
+            "refined_holds": self.refined_holds,
+            "refined_saturated": self.refined_saturated,
             "region_count": self.region_count,
             "regions": [],
             "cross_check": self.cross_check,
@@ -147,6 +178,7 @@ class TidalSummary:
     levels: tuple
     undefined_points: int
     noise_floor_g: float | None = None
+    peak_index: int | None = None     # flat grid index of peak_point (for the figures)
 
     def to_json(self) -> dict:
         return {
@@ -184,7 +216,8 @@ class StationSummary:
 
 @dataclass
 class AuditResult:
-    """Everything an audit found. ``maps`` holds per-event arrays in grid shape."""
+    """Everything an audit found. ``maps`` (:class:`ResultMaps`) holds per-event
+    arrays, flat in the grid's C order."""
 
     metric: object
     grid: Grid
@@ -198,7 +231,7 @@ class AuditResult:
     energy: EnergyBudget | None
     tidal: TidalSummary
     he_type_counts: dict
-    maps: dict = field(repr=False, default_factory=dict)
+    maps: Mapping = field(repr=False, default_factory=dict)
     crew: object | None = None
     station: object | None = None
     seconds: float = 0.0
@@ -274,7 +307,8 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
 
     ``jobs`` > 1 spreads the chunks over that many processes; ``dask`` (a
     scheduler address) over an existing Dask cluster. Chunks are evaluated by
-    the same code either way, so the results do not depend on the layout.
+    the same code either way and reduced in grid order with exact sums, so the
+    results do not depend on the layout or on the chunk size.
     """
     t0 = time.monotonic()
     if metric.region is None:
@@ -287,10 +321,10 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
     if size > MAX_GRID_POINTS:
         raise UsageError(f"the region has {size} events, more than the {MAX_GRID_POINTS} "
                          "one audit accepts; lower region.points or --points")
-    need = size * BYTES_PER_EVENT
+    need = size * BYTES_PER_EVENT + WORKING_BYTES
     avail = _available_memory()
     if avail is not None and need > 0.8 * avail:
-        raise UsageError(f"the region has {size} events; its result maps need about "
+        raise UsageError(f"the region has {size} events; its audit needs about "
                          f"{need / 2**30:.1f} GiB but {avail / 2**30:.1f} GiB are available; "
                          "lower region.points or --points")
     if progress is None:
@@ -298,118 +332,334 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
     bar = _Progress(size, progress)
     crew_cfg = metric.crew
 
-    nan = lambda: np.full(size, np.nan)
-    maps = {"reason": np.zeros(size, np.int8), "he_type": np.full(size, -1, np.int8),
-            "rho": nan(), "weight": np.zeros(size), "tidal_g": nan(),
-            "eulerian": np.zeros(size, bool), "limit": np.zeros(size, bool),
-            "station_g": nan(), "tidal_floor_g": nan(), "tol_T": nan()}
-    for c in CONDITIONS:
-        maps["margin_" + c] = nan()
-        maps["tol_" + c] = nan()
-    tidal_eigs = np.full((size, 3), np.nan)
-
-    # Cross-check subset: every event of small grids, a seeded random subset of big ones.
-    rng = np.random.default_rng(20261201)
-    check_mask = np.ones(size, bool) if size <= CROSS_CHECK_POINTS else \
-        (rng.random(size) < CROSS_CHECK_POINTS / size)
-    cross = {c: {"exact": [], "sampled": [], "tol": []} for c in CONDITIONS}
-
+    checked = _cross_check_events(size)
+    acc = _Reduction(grid, metric)
     bounds = [(a, min(a + chunk, size)) for a in range(0, size, chunk)]
-    for (a, b), part in _chunks(metric, geometry, grid, bounds, check_mask, jobs, dask):
-        for key, arr in part.items():
-            if key == "cross":
-                for c in CONDITIONS:
-                    for k in ("exact", "sampled", "tol"):
-                        cross[c][k].append(arr[c][k])
-            elif key == "tidal_eigs":
-                tidal_eigs[a:b] = arr
-            else:
-                maps[key][a:b] = arr
+    for (a, b), part in _chunks(metric, geometry, grid, bounds, checked, jobs, dask):
+        acc.add(a, b, part)
         bar.update(b)
 
-    ok = maps["reason"] == 0
-    audited = int(ok.sum())
-    counts = {r: int(np.count_nonzero(maps["reason"] == i + 1)) for i, r in enumerate(REASONS)}
+    maps = acc.maps
+    audited = acc.audited
+    counts = {r: int(acc.reason_counts[i + 1]) for i, r in enumerate(REASONS)}
     if audited == 0:
         detail = ", ".join(f"{v} {k}" for k, v in counts.items() if v)
         raise NoAuditablePointError(f"{metric.path}: no auditable event in [region] "
                                     f"({size} events: {detail})")
 
     spatial = grid.spatial_sampled
-    tindex = grid.time_index(0, size)
-    per_time = grid.time_sampled and spatial
-
-    def integrate(values, mask):
-        """Σ values·weight over mask; a list per time sample when t is sampled."""
-        vals = np.where(mask, values * maps["weight"], 0.0)
-        if per_time:
-            return [float(v) for v in np.bincount(tindex, weights=vals, minlength=grid.n_times)]
-        return float(vals.sum())
-
-    worsts = {c: int(np.nanargmin(np.where(ok, maps["margin_" + c], np.nan)))
-              for c in CONDITIONS}
+    worsts = {c: acc.worst_index(c) for c in CONDITIONS}
+    grid_tol = {c: float(margin_tolerances(maps["tol_T"][worsts[c]:worsts[c] + 1])[c][0])
+                for c in CONDITIONS}
     refined = {}
     if refine:
         refined = _refine_all(geometry, metric, grid, worsts,
-                              {c: float(maps["margin_" + c][worsts[c]]) for c in CONDITIONS})
+                              {c: float(maps["margin_" + c][worsts[c]]) for c in CONDITIONS},
+                              grid_tol)
     conditions = {}
     for c in CONDITIONS:
-        m, tol = maps["margin_" + c], maps["tol_" + c]
-        violating = ok & (m < -tol)
-        saturated = ok & (np.abs(m) <= tol)
         worst = worsts[c]
-        summary_regions, n_regions = _regions(grid, violating, m, maps, integrate, spatial)
-        refined_m, refined_pt = refined.get(c, (None, None))
-        cx = cross[c]
-        if cx["exact"]:
-            ex, sa, tl = (np.concatenate(cx[k]) for k in ("exact", "sampled", "tol"))
-            above = int(np.count_nonzero(ex > sa + tl))
-            cross_check = {"points": int(ex.size), "exact_above_sampled": above,
-                           "sampled_min": float(np.nanmin(sa)), "exact_min": float(np.nanmin(ex)),
-                           "sampled_missed_violations": int(np.count_nonzero(
-                               (ex < -tl) & (sa >= -tl)))}
-        else:
-            cross_check = {"points": 0}
+        min_margin = float(maps["margin_" + c][worst])
+        summary_regions, n_regions = _regions(grid, maps, c, acc.per_time)
+        refined_m, refined_pt, refined_tol = refined.get(c, (None, None, None))
+        core = _core_volume(grid, maps, c, CORE_FRACTION * min_margin, acc.per_time) \
+            if spatial else None
         conditions[c] = ConditionSummary(
-            name=c, holds=not bool(violating.any()),
-            saturated_fraction=float(saturated.sum() / audited),
-            violating_fraction=float(violating.sum() / audited),
-            violating_volume=integrate(np.ones(size), violating) if spatial else None,
-            min_margin=float(m[worst]), worst_point=grid.event(worst),
+            name=c, holds=acc.violating[c] == 0,
+            saturated_fraction=float(acc.saturated[c] / audited),
+            violating_fraction=float(acc.violating[c] / audited),
+            violating_volume=acc.result(acc.violating_volume[c]) if spatial else None,
+            min_margin=min_margin, worst_point=grid.event(worst),
             refined_min_margin=refined_m, refined_worst_point=refined_pt,
-            volume_integral=integrate(np.minimum(np.nan_to_num(m), 0.0), violating)
-            if spatial else None,
-            regions=tuple(summary_regions), region_count=n_regions, cross_check=cross_check,
-            core_violating_volume=integrate(np.ones(size), violating & (
-                np.nan_to_num(m) < CORE_FRACTION * float(m[worst]))) if spatial else None)
-        maps["cross_" + c] = cross[c]
+            volume_integral=acc.result(acc.volume_integral[c]) if spatial else None,
+            regions=tuple(summary_regions), region_count=n_regions,
+            cross_check=acc.cross_check(c), core_violating_volume=core,
+            min_margin_tolerance=grid_tol[c], refined_tolerance=refined_tol)
+        maps.stored["cross_" + c] = acc.cross[c]
 
     energy = None
-    eul_ok = ok & np.isfinite(maps["rho"])
-    if spatial and eul_ok.any():   # Eulerian-only output: absent where no slice is spacelike
-        rho = np.nan_to_num(maps["rho"])
-        energy = EnergyBudget(total=integrate(rho, eul_ok),
-                              negative_total=integrate(np.minimum(rho, 0.0), eul_ok),
+    # Eulerian-only output: absent where no slice is spacelike
+    if spatial and acc.eulerian_audited:
+        energy = EnergyBudget(total=acc.result(acc.energy_total),
+                              negative_total=acc.result(acc.energy_negative),
                               length_m=metric.length_m,
-                              tolerance=integrate(np.nan_to_num(maps["tol_T"]), eul_ok))
+                              tolerance=acc.result(acc.energy_tolerance))
 
-    tidal = _tidal_summary(grid, maps, tidal_eigs, ok, crew_cfg)
-    types = {"vacuum": 0, "I": 0, "II": 0, "III": 0, "IV": 0}
-    for code, name in enumerate(("vacuum", "I", "II", "III", "IV")):
-        types[name] = int(np.count_nonzero(ok & (maps["he_type"] == code)))
+    names = ("vacuum", "I", "II", "III", "IV")
+    types = {name: int(acc.he_counts[code]) for code, name in enumerate(names)}
 
     result = AuditResult(
         metric=metric, grid=grid, parameters=dict(metric.parameters), points=size,
         audited_points=audited, excluded_by_reason=counts,
-        resolved_as_limit=int(maps["limit"].sum()),
-        non_eulerian_points=int(np.count_nonzero(ok & ~maps["eulerian"])),
-        conditions=conditions, energy=energy, tidal=tidal, he_type_counts=types, maps=maps,
-        station=_station_summary(grid, maps, ok))
+        resolved_as_limit=acc.limit, non_eulerian_points=acc.non_eulerian,
+        conditions=conditions, energy=energy, tidal=acc.tidal_summary(),
+        he_type_counts=types, maps=maps, station=acc.station_summary())
     if crew and crew_cfg.start is not None:
         from .crew.worldline import follow
         result.crew = follow(metric, geometry)
     result.seconds = time.monotonic() - t0
     return result
+
+
+def _cross_check_events(size: int) -> np.ndarray:
+    """Flat indices of the cross-check events: all of a small grid, else a seeded
+    random subset of about CROSS_CHECK_POINTS (drawn block by block: the same
+    stream, and so the same events, as one draw over the whole grid)."""
+    if size <= CROSS_CHECK_POINTS:
+        return np.arange(size)
+    rng = np.random.default_rng(20261201)
+    return np.concatenate([a + np.flatnonzero(rng.random(b - a) < CROSS_CHECK_POINTS / size)
+                           for a, b in _blocks(size)])
+
+
+def _check_mask(checked: np.ndarray, a: int, b: int) -> np.ndarray:
+    """Bool mask of the cross-check events among flat indices a..b-1."""
+    mask = np.zeros(b - a, bool)
+    lo, hi = np.searchsorted(checked, [a, b])
+    mask[checked[lo:hi] - a] = True
+    return mask
+
+
+class ResultMaps(Mapping):
+    """Per-event arrays of an audit, flat in the grid's C order.
+
+    Stored (what the summaries after the pass, the regions and the report's
+    figures need): ``reason`` (int8, 0 audited, else 1 + index into REASONS),
+    ``he_type`` (int8, −1 excluded), ``eulerian`` (bool); float64
+    ``margin_<C>``, ``tol_T`` (round-off of T's frame components), ``weight``
+    (proper-volume weight) and ``rho`` (Eulerian energy density); float32
+    ``tidal_g`` and ``station_g`` (figures only: their summaries are reduced in
+    float64 during the pass; values beyond float32's range are clipped to it);
+    ``cross_<C>`` (the cross-check's exact, sampled and tolerance lists).
+
+    Derived on each access, not kept: ``tol_<C>``, the margin tolerances, fixed
+    multiples of ``tol_T`` (:func:`auditor.pointwise.margin_tolerances`).
+    """
+
+    def __init__(self, stored: dict):
+        self.stored = stored
+
+    def __getitem__(self, key):
+        if key in self.stored:
+            return self.stored[key]
+        if key.startswith("tol_") and key[4:] in CONDITIONS:
+            return margin_tolerances(self.stored["tol_T"])[key[4:]]
+        raise KeyError(key)
+
+    def __iter__(self):
+        yield from self.stored
+        yield from ("tol_" + c for c in CONDITIONS)
+
+    def __len__(self):
+        return len(self.stored) + len(CONDITIONS)
+
+
+def _empty_maps(size: int) -> dict:
+    nan = lambda dtype=np.float64: np.full(size, np.nan, dtype)
+    out = {"reason": np.zeros(size, np.int8), "he_type": np.full(size, -1, np.int8),
+           "eulerian": np.zeros(size, bool), "tol_T": nan(), "weight": np.zeros(size),
+           "rho": nan(), "tidal_g": nan(np.float32), "station_g": nan(np.float32)}
+    for c in CONDITIONS:
+        out["margin_" + c] = nan()
+    return out
+
+
+_F32_MAX = float(np.finfo(np.float32).max)
+
+
+def _display(values: np.ndarray) -> np.ndarray:
+    """float32 copy for figures; finite values beyond float32's range clipped to it."""
+    with np.errstate(invalid="ignore"):
+        return np.clip(values, -_F32_MAX, _F32_MAX).astype(np.float32)
+
+
+class _Reduction:
+    """Everything the audit keeps of the chunks, fed in grid order.
+
+    Stores the maps of :class:`ResultMaps` and reduces the rest on the way:
+    counts, first minima and maxima (a later chunk replaces the running one only
+    when strictly better, so ties go to the first event in grid order, as with
+    one ``argmin`` over the whole grid), and sums as :class:`~auditor.sums.ExactSum`
+    (exact, so independent of the chunk size). Sums are grouped by time sample
+    when the time axis is sampled.
+    """
+
+    def __init__(self, grid, metric):
+        size = grid.size
+        self.grid, self.metric, self.crew_cfg = grid, metric, metric.crew
+        self.maps = ResultMaps(_empty_maps(size))
+        self.per_time = grid.time_sampled and grid.spatial_sampled
+        self.groups = grid.n_times if self.per_time else 1
+        self.reason_counts = np.zeros(len(REASONS) + 1, np.int64)
+        self.he_counts = np.zeros(5, np.int64)
+        self.audited = self.limit = self.non_eulerian = self.eulerian_audited = 0
+        self.saturated = dict.fromkeys(CONDITIONS, 0)
+        self.violating = dict.fromkeys(CONDITIONS, 0)
+        self._worst = dict.fromkeys(CONDITIONS)          # (value, flat index)
+        self.violating_volume = {c: ExactSum(self.groups) for c in CONDITIONS}
+        self.volume_integral = {c: ExactSum(self.groups) for c in CONDITIONS}
+        self.energy_total, self.energy_negative, self.energy_tolerance = \
+            (ExactSum(self.groups) for _ in range(3))
+        self.cross = {c: {"exact": [], "sampled": [], "tol": []} for c in CONDITIONS}
+        self.tidal_levels = tidal_levels(self.crew_cfg.tidal_limit_g)
+        self.tidal = {"defined": 0, "undefined": 0, "peak": None, "floor": None,
+                      "above": dict.fromkeys((l.key for l in self.tidal_levels), 0)}
+        from .crew.limits import WHOLE_BODY_LIMITS
+        self.station_levels = WHOLE_BODY_LIMITS
+        self.station = {"defined": 0, "undefined": 0, "peak": None, "min": None,
+                        "above": dict.fromkeys((l.key for l in WHOLE_BODY_LIMITS), 0)}
+
+    def add(self, a: int, b: int, part: dict) -> None:
+        stored = self.maps.stored
+        reason = part["reason"]
+        ok = reason == 0
+        stored["reason"][a:b] = reason
+        self.reason_counts += np.bincount(reason, minlength=len(REASONS) + 1)
+        self.limit += int(np.count_nonzero(part["limit"]))
+        for c in CONDITIONS:
+            for k in ("exact", "sampled", "tol"):
+                self.cross[c][k].append(part["cross"][c][k])
+        n_ok = int(np.count_nonzero(ok))
+        if n_ok == 0:
+            return
+        self.audited += n_ok
+        for key in ("he_type", "eulerian", "tol_T", "weight", "rho"):
+            stored[key][a:b] = part[key]
+        stored["tidal_g"][a:b] = _display(part["tidal_g"])
+        stored["station_g"][a:b] = _display(part["station_g"])
+        self.non_eulerian += int(np.count_nonzero(ok & ~part["eulerian"]))
+        self.he_counts += np.bincount(part["he_type"][ok], minlength=5)[:5]
+
+        w = part["weight"]
+        t = self.grid.time_index(a, b) if self.per_time else None
+        group = (lambda sel: None) if t is None else (lambda sel: t[sel])
+        tols = margin_tolerances(part["tol_T"])
+        for c in CONDITIONS:
+            m = part["margin_" + c]
+            stored["margin_" + c][a:b] = m
+            tol = tols[c]
+            violating = ok & (m < -tol)
+            self.violating[c] += int(np.count_nonzero(violating))
+            self.saturated[c] += int(np.count_nonzero(ok & (np.abs(m) <= tol)))
+            self._first_min(c, np.where(ok, m, np.nan), a)
+            if self.grid.spatial_sampled:
+                self.violating_volume[c].add(w[violating], group(violating))
+                self.volume_integral[c].add(
+                    (np.minimum(np.nan_to_num(m), 0.0) * w)[violating], group(violating))
+        rho = part["rho"]
+        eul_ok = ok & np.isfinite(rho)
+        if self.grid.spatial_sampled and eul_ok.any():
+            self.eulerian_audited += int(np.count_nonzero(eul_ok))
+            self.energy_total.add((rho * w)[eul_ok], group(eul_ok))
+            self.energy_negative.add((np.minimum(rho, 0.0) * w)[eul_ok], group(eul_ok))
+            self.energy_tolerance.add((part["tol_T"] * w)[eul_ok], group(eul_ok))
+        self._loads(ok, part, a)
+
+    def _first_min(self, c, values, a):
+        if np.isnan(values).all():
+            return
+        j = int(np.nanargmin(values))
+        v = float(values[j])
+        if self._worst[c] is None or v < self._worst[c][0]:
+            self._worst[c] = (v, a + j)
+
+    def worst_index(self, c) -> int:
+        """Flat index of the first grid minimum of the margin (first audited
+        event if no margin is a number)."""
+        if self._worst[c] is not None:
+            return self._worst[c][1]
+        return int(np.flatnonzero(self.maps["reason"] == 0)[0])
+
+    def _loads(self, ok, part, a):
+        tg = part["tidal_g"]
+        t = self.tidal
+        defined = ok & np.isfinite(tg)
+        t["undefined"] += int(np.count_nonzero(ok & ~np.isfinite(tg)))
+        if defined.any():
+            t["defined"] += int(np.count_nonzero(defined))
+            j = int(np.nanargmax(np.where(defined, tg, np.nan)))
+            if t["peak"] is None or tg[j] > t["peak"][0]:
+                t["peak"] = (float(tg[j]), a + j, [float(v) for v in part["tidal_eigs"][j]])
+            for l in self.tidal_levels:
+                t["above"][l.key] += int(np.count_nonzero(defined & (tg > l.value_g)))
+            floor = part["tidal_floor_g"][defined]
+            if not np.isnan(floor).all():
+                f = float(np.nanmax(floor))
+                t["floor"] = f if t["floor"] is None else max(t["floor"], f)
+        sg = part["station_g"]
+        s = self.station
+        defined = ok & np.isfinite(sg)
+        s["undefined"] += int(np.count_nonzero(ok & ~np.isfinite(sg)))
+        if defined.any():
+            s["defined"] += int(np.count_nonzero(defined))
+            j = int(np.nanargmax(np.where(defined, sg, np.nan)))
+            if s["peak"] is None or sg[j] > s["peak"][0]:
+                s["peak"] = (float(sg[j]), a + j)
+            lo = float(np.min(sg[defined]))
+            s["min"] = lo if s["min"] is None else min(s["min"], lo)
+            for l in self.station_levels:
+                s["above"][l.key] += int(np.count_nonzero(defined & (sg > l.value_g)))
+
+    def result(self, total: ExactSum):
+        """A float, or a list per time sample when time is sampled."""
+        return total.values() if self.per_time else total.value()
+
+    def cross_check(self, c) -> dict:
+        cx = self.cross[c]
+        if not any(len(v) for v in cx["exact"]):
+            return {"points": 0}
+        ex, sa, tl = (np.concatenate(cx[k]) for k in ("exact", "sampled", "tol"))
+        return {"points": int(ex.size), "exact_above_sampled": int(np.count_nonzero(ex > sa + tl)),
+                "sampled_min": float(np.nanmin(sa)), "exact_min": float(np.nanmin(ex)),
+                "sampled_missed_violations": int(np.count_nonzero((ex < -tl) & (sa >= -tl)))}
+
+    def tidal_summary(self) -> TidalSummary:
+        cfg, t = self.crew_cfg, self.tidal
+        levels = self.tidal_levels
+        if t["defined"] == 0:
+            return TidalSummary(cfg.frame, cfg.body_length_m, None, None, None,
+                                {l.key: None for l in levels}, levels, self.audited)
+        peak, where, eigs = t["peak"]
+        frac = {l.key: float(t["above"][l.key] / t["defined"]) for l in levels}
+        return TidalSummary(cfg.frame, cfg.body_length_m, peak, self.grid.event(where), eigs,
+                            frac, levels, t["undefined"],
+                            float("nan") if t["floor"] is None else t["floor"], where)
+
+    def station_summary(self) -> StationSummary:
+        s = self.station
+        if s["defined"] == 0:
+            return StationSummary(None, None, None,
+                                  {l.key: None for l in self.station_levels}, self.audited)
+        frac = {l.key: float(s["above"][l.key] / s["defined"]) for l in self.station_levels}
+        return StationSummary(s["peak"][0], self.grid.event(s["peak"][1]), s["min"], frac,
+                              s["undefined"])
+
+
+#: Events per block when the stored maps are read again after the pass (regions,
+#: core volumes): bounds the temporaries to a few MiB whatever the grid.
+BLOCK = 1 << 18
+
+
+def _blocks(size: int):
+    return ((a, min(a + BLOCK, size)) for a in range(0, size, BLOCK))
+
+
+def _violating_block(maps, c, a, b):
+    m = maps.stored["margin_" + c][a:b]
+    tol = margin_tolerances(maps.stored["tol_T"][a:b])[c]
+    return (maps.stored["reason"][a:b] == 0) & (m < -tol)
+
+
+def _core_volume(grid, maps, c, threshold, per_time):
+    """Proper volume where the condition is violated and margin < ``threshold``
+    (a list per time sample if ``per_time``)."""
+    total = ExactSum(grid.n_times if per_time else 1)
+    for a, b in _blocks(grid.size):
+        core = _violating_block(maps, c, a, b) & \
+            (np.nan_to_num(maps.stored["margin_" + c][a:b]) < threshold)
+        t = grid.time_index(a, b) if per_time else None
+        total.add(maps.stored["weight"][a:b][core], None if t is None else t[core])
+    return total.values() if per_time else total.value()
 
 
 def _available_memory() -> int | None:
@@ -437,7 +687,11 @@ def _available_memory() -> int | None:
 
 
 def chunk_fields(metric, geometry, grid, start: int, stop: int, check: np.ndarray) -> dict:
-    """Per-event results of grid events start..stop-1 (NaN where excluded)."""
+    """Per-event results of grid events start..stop-1 (NaN where excluded).
+
+    Margin tolerances are not returned: they are fixed multiples of ``tol_T``
+    (:func:`auditor.pointwise.margin_tolerances`).
+    """
     n = stop - start
     crew_cfg = metric.crew
     nan = lambda: np.full(n, np.nan)
@@ -447,7 +701,6 @@ def chunk_fields(metric, geometry, grid, start: int, stop: int, check: np.ndarra
            "tol_T": nan()}
     for c in CONDITIONS:
         out["margin_" + c] = nan()
-        out["tol_" + c] = nan()
     batch = geometry.evaluate(grid.events(start, stop), metric.parameters)
     out["reason"], out["limit"] = batch.reason, batch.limit
     fields = analyse(batch, crew_cfg.frame)
@@ -459,7 +712,6 @@ def chunk_fields(metric, geometry, grid, start: int, stop: int, check: np.ndarra
     idx = np.flatnonzero(batch.ok)
     for c in CONDITIONS:
         out["margin_" + c][idx] = fields.margins[c]
-        out["tol_" + c][idx] = fields.tolerances[c]
     out["he_type"][idx] = fields.he_type
     out["rho"][idx] = fields.rho
     out["tol_T"][idx] = fields.t_tol
@@ -517,14 +769,14 @@ def dask_client(address: str):
         raise UsageError(f"--dask: cannot reach a Dask scheduler at {address} ({exc})") from exc
 
 
-def _chunks(metric, geometry, grid, bounds, check_mask, jobs, dask):
+def _chunks(metric, geometry, grid, bounds, checked, jobs, dask):
     """Yield ((start, stop), fields) for every chunk, in order, however they are run."""
     if dask:
         client = dask_client(dask)
         try:
             futs = [client.submit(_chunk_on_dask, metric.path, metric.sha256,
-                                  dict(metric.parameters), grid, a, b, check_mask[a:b],
-                                  pure=False) for a, b in bounds]
+                                  dict(metric.parameters), grid, a, b,
+                                  _check_mask(checked, a, b), pure=False) for a, b in bounds]
             for (a, b), fut in zip(bounds, futs):
                 yield (a, b), fut.result()
         finally:
@@ -535,41 +787,89 @@ def _chunks(metric, geometry, grid, bounds, check_mask, jobs, dask):
         from concurrent.futures import ProcessPoolExecutor
         _STATE.update(metric=metric, geometry=geometry, grid=grid)   # inherited by fork
         with ProcessPoolExecutor(max_workers=jobs, mp_context=mp.get_context("fork")) as pool:
-            futs = [pool.submit(_chunk_in_worker, a, b, check_mask[a:b]) for a, b in bounds]
+            futs = [pool.submit(_chunk_in_worker, a, b, _check_mask(checked, a, b))
+                    for a, b in bounds]
             for (a, b), fut in zip(bounds, futs):
                 yield (a, b), fut.result()
         return
     for a, b in bounds:
-        yield (a, b), chunk_fields(metric, geometry, grid, a, b, check_mask[a:b])
+        yield (a, b), chunk_fields(metric, geometry, grid, a, b, _check_mask(checked, a, b))
 
 
-def _regions(grid, violating, m, maps, integrate, spatial):
-    """Connected violating regions (face connectivity), worst first."""
+def _regions(grid, maps, c, per_time):
+    """Connected violating regions of condition ``c`` (face connectivity), worst first.
+
+    Labels one condition at a time (a bool mask and int32 labels for the grid);
+    per region: the minimum margin and its first event in grid order, the number
+    of events and, for the listed regions, exact sums of proper volume and
+    Eulerian energy (lists per time sample if ``per_time``), all read block by
+    block.
+    """
     from scipy import ndimage     # imported here: not needed before the first chunk
+    size = grid.size
+    groups = grid.n_times if per_time else 1
+    violating = np.empty(size, bool)
+    for a, b in _blocks(size):
+        violating[a:b] = _violating_block(maps, c, a, b)
     labels, n = ndimage.label(violating.reshape(grid.shape))
+    del violating
     if n == 0:
         return [], 0
     flat = labels.ravel()
-    idx = np.arange(1, n + 1)
-    mins = ndimage.minimum(np.where(violating, m, np.inf), flat, idx)
-    arg = ndimage.minimum_position(np.where(violating, m, np.inf), flat, idx)
-    sizes = ndimage.sum_labels(np.ones_like(flat), flat, idx)
-    order = np.argsort(mins)[:MAX_REGIONS]
+    margin = maps.stored["margin_" + c]
+    mins = np.full(n + 1, np.inf)
+    where = np.full(n + 1, -1, np.int64)
+    sizes = np.zeros(n + 1, np.int64)
+    for a, b in _blocks(size):
+        lab = flat[a:b]
+        inside = np.flatnonzero(lab)
+        if inside.size == 0:
+            continue
+        lab, m = lab[inside], margin[a:b][inside]
+        sizes += np.bincount(lab, minlength=n + 1)
+        block_min = np.full(n + 1, np.inf)
+        np.minimum.at(block_min, lab, m)
+        hit = np.flatnonzero(m == block_min[lab])
+        first_lab, first = np.unique(lab[hit], return_index=True)   # first event per label
+        better = block_min[first_lab] < mins[first_lab]   # ties keep the earlier block's event
+        mins[first_lab[better]] = block_min[first_lab[better]]
+        where[first_lab[better]] = a + inside[hit[first[better]]]
+    order = np.argsort(mins[1:], kind="stable")[:MAX_REGIONS]
+    volume = energy = None
+    if grid.spatial_sampled:
+        rank = np.full(n + 1, -1, np.int64)
+        rank[order + 1] = np.arange(len(order))
+        volume, energy = ExactSum(len(order) * groups), ExactSum(len(order) * groups)
+        for a, b in _blocks(size):
+            r = rank[flat[a:b]]
+            sel = r >= 0
+            if not sel.any():
+                continue
+            group = r if not per_time else r * groups + grid.time_index(a, b)
+            w, rho = maps.stored["weight"][a:b], maps.stored["rho"][a:b]
+            volume.add(w[sel], group[sel])
+            eul = sel & np.isfinite(rho)
+            energy.add((rho * w)[eul], group[eul])
+    del labels, flat
+
+    volume, energy = (None if t is None else t.values() for t in (volume, energy))
+
+    def per_region(values, k):
+        if values is None:
+            return None
+        vals = values[k * groups:(k + 1) * groups]
+        return vals if per_time else vals[0]
+
     out = []
-    rho = np.nan_to_num(maps["rho"])
-    for k in order:
-        lab = k + 1
-        mask = flat == lab
-        worst = int(arg[k][0])
+    for k, lab in enumerate((order + 1).tolist()):
         out.append(ViolatingRegion(
-            volume=integrate(np.ones_like(m), mask) if spatial else None,
-            min_margin=float(mins[k]),
-            eulerian_energy=integrate(rho, mask & np.isfinite(maps["rho"])) if spatial else None,
-            worst_point=grid.event(worst), points=int(sizes[k])))
+            volume=per_region(volume, k), min_margin=float(mins[lab]),
+            eulerian_energy=per_region(energy, k), worst_point=grid.event(int(where[lab])),
+            points=int(sizes[lab])))
     return out, int(n)
 
 
-def _refine_all(geometry, metric, grid, worst: dict, start_values: dict,
+def _refine_all(geometry, metric, grid, worst: dict, start_values: dict, start_tols: dict,
                 levels: int = REFINE_LEVELS, per_axis: int = REFINE_PER_AXIS):
     """Local minimisation of each margin on the exact kernels, from its grid minimum.
 
@@ -579,7 +879,10 @@ def _refine_all(geometry, metric, grid, worst: dict, start_values: dict,
     smaller... for ``levels`` rounds (all conditions share one batch per round).
     The final box is (2/(per_axis-1))**levels of a grid spacing across; for a
     smooth minimum the error of the refined value is quadratic in that.
-    Returns {cond: (value, event)}; never worse than the grid value.
+    Returns {cond: (value, event, tolerance)}, the tolerance being the margin's
+    round-off at that event (from :func:`~auditor.pointwise.analyse`, or
+    ``start_tols`` where the grid event stays the best); never worse than the
+    grid value.
     """
     axes = [metric.coordinates.index(n) for n in grid.axis_names]
     spacing = np.array([v[1] - v[0] for v in grid.axis_values])
@@ -587,7 +890,7 @@ def _refine_all(geometry, metric, grid, worst: dict, start_values: dict,
     hi = np.array([v[-1] for v in grid.axis_values])
     conds = list(worst)
     centre = {c: grid.events(worst[c], worst[c] + 1)[0] for c in conds}
-    best = {c: (start_values[c], centre[c].copy()) for c in conds}
+    best = {c: (start_values[c], centre[c].copy(), start_tols[c]) for c in conds}
     half = spacing.copy()
     offs = np.linspace(-1.0, 1.0, per_axis)
     mesh = np.stack(np.meshgrid(*([offs] * len(axes)), indexing="ij"), -1).reshape(-1, len(axes))
@@ -611,42 +914,10 @@ def _refine_all(geometry, metric, grid, worst: dict, start_values: dict,
             j = int(np.argmin(vals))
             pt = x_all[okidx[sel][j]]
             if vals[j] < best[c][0]:
-                best[c] = (float(vals[j]), pt.copy())
+                best[c] = (float(vals[j]), pt.copy(), float(f.tolerances[c][sel][j]))
             centre[c] = best[c][1].copy()
         half = half * 2.0 / (per_axis - 1)
     snap = 1e-9 * spacing.max()   # zoom arithmetic leaves ~1e-16 where the minimum is at 0
     return {c: (best[c][0], {n: (0.0 if abs(v) < snap else float(v))
-                             for n, v in zip(metric.coordinates, best[c][1])})
+                             for n, v in zip(metric.coordinates, best[c][1])}, best[c][2])
             for c in conds}
-
-
-def _tidal_summary(grid, maps, eigs, ok, crew_cfg) -> TidalSummary:
-    tg = maps["tidal_g"]
-    defined = ok & np.isfinite(tg)
-    levels = tidal_levels(crew_cfg.tidal_limit_g)
-    if not defined.any():
-        return TidalSummary(crew_cfg.frame, crew_cfg.body_length_m, None, None, None,
-                            {l.key: None for l in levels}, levels, int(ok.sum()))
-    peak = int(np.nanargmax(np.where(defined, tg, np.nan)))
-    n_def = int(defined.sum())
-    frac = {l.key: float(np.count_nonzero(defined & (tg > l.value_g)) / n_def) for l in levels}
-    floor = maps["tidal_floor_g"]
-    return TidalSummary(crew_cfg.frame, crew_cfg.body_length_m, float(tg[peak]),
-                        grid.event(peak), [float(v) for v in eigs[peak]], frac, levels,
-                        int(np.count_nonzero(ok & ~np.isfinite(tg))),
-                        float(np.nanmax(np.where(defined, floor, np.nan))))
-
-
-def _station_summary(grid, maps, ok) -> StationSummary:
-    from .crew.limits import WHOLE_BODY_LIMITS
-    sg = maps["station_g"]
-    defined = ok & np.isfinite(sg)
-    if not defined.any():
-        return StationSummary(None, None, None, {l.key: None for l in WHOLE_BODY_LIMITS},
-                              int(ok.sum()))
-    peak = int(np.nanargmax(np.where(defined, sg, np.nan)))
-    n_def = int(defined.sum())
-    frac = {l.key: float(np.count_nonzero(defined & (sg > l.value_g)) / n_def)
-            for l in WHOLE_BODY_LIMITS}
-    return StationSummary(float(sg[peak]), grid.event(peak), float(np.nanmin(sg[defined])), frac,
-                          int(np.count_nonzero(ok & ~np.isfinite(sg))))

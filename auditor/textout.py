@@ -67,6 +67,16 @@ def format_probe(r) -> str:
     return "\n".join(lines)
 
 
+def margin_text(value, tol, digits: int = 4) -> str:
+    """A margin for a table: ``0+-tol`` where it is zero within its round-off
+    (saturated), else the value."""
+    if value is None:
+        return "n/a"
+    if tol is not None and np.isfinite(value) and abs(value) <= tol:
+        return "0+-" + fmt(tol, 2)
+    return fmt(value, digits)
+
+
 def _pt(p) -> str:
     if not p:
         return "n/a"
@@ -97,6 +107,7 @@ def format_audit(res, require=("NEC", "WEC", "SEC", "DEC")) -> str:
     head = (f"{'':4}{'verdict':<11}{'violating':>10}{'volume':>11}{'core vol':>10}"
             f"{'min margin':>12}{'refined':>12}  worst event")
     lines.append(head)
+    between = []
     for c, s in res.conditions.items():
         if s.holds:
             verdict = "holds" if s.saturated_fraction < 1.0 else "saturated"
@@ -109,11 +120,22 @@ def format_audit(res, require=("NEC", "WEC", "SEC", "DEC")) -> str:
         core = s.core_violating_volume
         core = fmt(sum(core) if isinstance(core, list) else core, 3) \
             if core is not None and not s.holds else "-"
+        refined = margin_text(s.refined_min_margin, s.refined_tolerance)
+        if s.holds and s.refined_holds is False:
+            refined += "!"
+            between.append(c)
         lines.append(f"{c:<4}{verdict:<11}{100 * s.violating_fraction:>9.2f}%{vol:>11}{core:>10}"
-                     f"{fmt(s.min_margin, 4):>12}{fmt(s.refined_min_margin, 4):>12}  "
+                     f"{margin_text(s.min_margin, s.min_margin_tolerance):>12}{refined:>12}  "
                      f"{_pt(s.refined_worst_point or s.worst_point)}")
     lines.append("volume: proper volume of violating events; core vol: where the margin is "
                  "below 1% of the minimum")
+    if any(s.refined_saturated or (s.min_margin_tolerance is not None
+                                   and abs(s.min_margin) <= s.min_margin_tolerance)
+           for s in res.conditions.values()):
+        lines.append("0+-tol: the margin is zero within its round-off tolerance (saturated)")
+    if between:
+        lines.append(f"! {', '.join(between)}: the refined minimum, between grid events, is below "
+                     "minus its tolerance; the verdict covers the audited grid events only")
     if any(c not in require for c in res.conditions):
         lines.append("* not required by --require")
     lines.append("")

@@ -481,7 +481,10 @@ def _dec_block(rho, b, A, n_dirs, n_starts, sN, Q):
         ri = b[:, i, None] + A[:, i, 0, None] * dirs[:, 0] + A[:, i, 1, None] * dirs[:, 1] \
             + A[:, i, 2, None] * dirs[:, 2]
         r2 += ri * ri
-    g = rho[:, None] + b @ dirs.T - np.sqrt(r2)
+    # b·s1 term by term (a matrix product could round differently with the
+    # batch size, and the scan must not depend on how events are batched)
+    g = rho[:, None] + b[:, 0, None] * dirs[:, 0] + b[:, 1, None] * dirs[:, 1] \
+        + b[:, 2, None] * dirs[:, 2] - np.sqrt(r2)
     m = min(n_starts, n_dirs)
     best = np.argpartition(g, m - 1, axis=1)[:, :m]
     # (ii) special starts: the NEC pair, extreme eigenvectors, ±b̂

@@ -113,10 +113,18 @@ class SampledMargins:
     dec: np.ndarray
 
 
+def _dot_dirs(v: np.ndarray, dirs: np.ndarray) -> np.ndarray:
+    """v_n · s_k (N, K), summed term by term: unlike a matrix product (which
+    switches between BLAS kernels with the batch's shape) each value is the same
+    whatever the batch it is computed in."""
+    return (v[:, None, 0] * dirs[None, :, 0] + v[:, None, 1] * dirs[None, :, 1]
+            + v[:, None, 2] * dirs[None, :, 2])
+
+
 def _ball_samples(X: np.ndarray, dirs: np.ndarray, speeds: np.ndarray) -> np.ndarray:
     """min over s in dirs, v in speeds of X_00 + 2 v X_0i s_i + v² X_ij s_i s_j."""
     rho = X[:, 0, 0]
-    lin = X[:, 0, 1:] @ dirs.T                                   # (N, K)
+    lin = _dot_dirs(X[:, 0, 1:], dirs)                           # (N, K)
     quad = (np.matmul(dirs[None], X[:, 1:, 1:]) * dirs[None]).sum(axis=-1)  # (N, K)
     vals = (rho[:, None, None] + 2.0 * speeds[None, :, None] * lin[:, None, :]
             + (speeds**2)[None, :, None] * quad[:, None, :])
@@ -164,7 +172,7 @@ def sampled_margins(T, n_dirs: int = DEFAULT_DIRECTIONS,
     k = dirs.shape[0]
     step = max(1, _PAIR_BUDGET // (k * k))
     dec = np.empty(n)
-    lin = b @ dirs.T                                             # (N, K)
+    lin = _dot_dirs(b, dirs)                                     # (N, K)
     for lo in range(0, n, step):
         hi = min(n, lo + step)
         pair = np.matmul(np.matmul(dirs[None], A[lo:hi]), dirs.T)     # s_kᵀ A s_l

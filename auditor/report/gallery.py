@@ -139,7 +139,9 @@ def _draw(result, j, dims) -> dict:
     tg = maps["tidal_g"]
     if t["peak_accel_g"] is not None and t["peak_accel_g"] > 0:
         level = t["levels"][0]["value_g"]
-        focus = _argmax(tg, ok)
+        # the peak found in float64 during the audit (the map is float32, for display)
+        focus = result.tidal.peak_index if result.tidal.peak_index is not None else \
+            _argmax(tg, ok)
         uri, drawn = map_figure(ctx, tg, kind="log", focus=focus, level=level,
                                 cbar_label="tidal load across the body  [g]",
                                 level_label=f"tidal criterion ({format_number(level)} g)")

@@ -11,7 +11,7 @@ as the PDF — and every piece of text from the metric file is escaped.
 from __future__ import annotations
 
 from .model import verdict_word
-from .numbers import latex_number
+from .numbers import latex_margin, latex_number
 
 __all__ = ["latex_table", "write_latex", "escape_latex"]
 
@@ -81,7 +81,8 @@ def latex_table(j: dict, label: str = "tab:audit") -> str:
     for c, s in j["conditions"].items():
         vol = _cell(s["violating_volume"]) if "violating_volume" in s else "---"
         integral = _cell(s["volume_integral"]) if "volume_integral" in s else "---"
-        lines.append(f"{escape_latex(c)} & {verdict_word(s)} & {latex_number(s['min_margin'])} "
+        margin = latex_margin(s["min_margin"], s.get("min_margin_tolerance"))
+        lines.append(f"{escape_latex(c)} & {verdict_word(s)} & {margin} "
                      f"& {vol} & {integral} \\\\")
     lines.append(r"\midrule")
     lines.append(r"Energy budget & & Geometric [$L$] & [J] & [kg] \\")

@@ -15,7 +15,7 @@ import os
 
 from .. import units
 from ..references import REFERENCES
-from .numbers import (MISSING, format_count, format_number, format_percent,
+from .numbers import (MISSING, format_count, format_margin, format_number, format_percent,
                       format_point)
 
 __all__ = ["build_view", "verdict_word", "CONDITION_NAMES", "REASON_TEXT"]
@@ -73,9 +73,9 @@ def _conditions(j: dict, require, sampled: list) -> list[dict]:
             "volume": _num_or_list(s["violating_volume"]) if "violating_volume" in s else MISSING,
             "integral": _num_or_list(s["volume_integral"]) if "volume_integral" in s else MISSING,
             "regions": format_count(s["region_count"]),
-            "min": format_number(s["min_margin"]),
+            "min": format_margin(s["min_margin"], s.get("min_margin_tolerance")),
             "where": format_point(s["worst_point"], sampled),
-            "refined": format_number(s["refined_min_margin"]),
+            "refined": format_margin(s["refined_min_margin"], s.get("refined_tolerance")),
             "refined_where": format_point(s["refined_worst_point"], sampled),
             "cross": cross,
             "cross_points": format_count(cx.get("points", 0)),

@@ -10,6 +10,8 @@ the LaTeX table and the tests agree digit for digit with the JSON:
   PDF and ``\\times 10^{44}`` in LaTeX;
 * a true minus sign (U+2212) in the PDF;
 * missing or non-finite values (JSON ``null``) print as an em dash;
+* a margin within its round-off tolerance prints as ``0 ± tol`` (tolerance to
+  2 digits): it is zero as far as the arithmetic can tell (saturated);
 * counts are exact integers, grouped in threes by a thin space from 10 000 on;
 * fractions of audited events print as percentages, ``format_number(100 f)`` + " %"
   (a fraction below one that would round to 100 prints as "> 99.99 %").
@@ -20,7 +22,7 @@ from __future__ import annotations
 import math
 
 __all__ = ["SIG_DIGITS", "MISSING", "number_parts", "format_number", "format_percent",
-           "format_count", "format_point", "latex_number"]
+           "format_count", "format_point", "latex_number", "format_margin", "latex_margin"]
 
 #: Significant digits of every printed non-integer number.
 SIG_DIGITS = 4
@@ -91,6 +93,26 @@ def latex_number(v, digits: int = SIG_DIGITS) -> str:
     if mant == "1":
         return f"${sign}10^{{{exp}}}$"
     return f"${sign}{mant}\\times 10^{{{exp}}}$"
+
+
+def _within(value, tol) -> bool:
+    v, t = _finite(value), _finite(tol)
+    return v is not None and t is not None and abs(v) <= t
+
+
+def format_margin(value, tol=None, digits: int = SIG_DIGITS) -> str:
+    """A margin: ``0 ± tol`` where it is zero within its round-off tolerance
+    (saturated: its digits are round-off), else :func:`format_number`."""
+    if _within(value, tol):
+        return "0 ± " + format_number(tol, 2)
+    return format_number(value, digits)
+
+
+def latex_margin(value, tol=None, digits: int = SIG_DIGITS) -> str:
+    """The LaTeX form of :func:`format_margin`."""
+    if _within(value, tol):
+        return "$0 \\pm " + latex_number(tol, 2)[1:]
+    return latex_number(value, digits)
 
 
 def format_percent(fraction, digits: int = SIG_DIGITS) -> str:

@@ -11,7 +11,7 @@ from __future__ import annotations
 import pytest
 
 from auditor.audit import audit
-from auditor.metric import load_metric
+from auditor.metric import load_metric, loads_metric
 
 from ..conftest import SAMPLES_DIR
 
@@ -142,3 +142,56 @@ def test_plane_wave_with_the_wrong_laplacian_sign_violates(geometry_cache):
     # Same source, opposite sign of the transverse Laplacian: T_uu < 0, NEC fails.
     res = run("plane_wave_brinkmann", points=9, geometry_cache=geometry_cache, A0=-0.05)
     assert not res.conditions["NEC"].holds
+
+
+def test_refined_minimum_of_vacuum_reads_saturated_near_the_singularity(geometry_cache):
+    # Schwarzschild is vacuum (published-checks §4): every margin is zero, however
+    # large the round-off near r -> 0 (curvature ~ M/r³). The refined minimum is
+    # reported with the tolerance at its own event, and within it it reads as
+    # saturated, in the JSON and in the terminal summary.
+    from auditor.textout import format_audit
+    text = (SAMPLES_DIR / "schwarzschild.toml").read_text()
+    text = text.replace("r = [1.0, 12.0]", "r = [0.05, 3.0]").replace('exclude = "2.1*M - r"\n', "")
+    metric = loads_metric(text)
+    res = audit(metric, geometry=geometry_cache.text(text), crew=False, progress=False)
+    assert res.grid.axis_values[0][0] == 0.05 and res.excluded_points <= res.points // 10
+    out = res.to_json()
+    for c in ALL:
+        s, j = res.conditions[c], out["conditions"][c]
+        assert s.holds and s.saturated_fraction == 1.0
+        assert s.refined_tolerance > 0 and abs(s.refined_min_margin) <= s.refined_tolerance
+        assert abs(s.min_margin) <= s.min_margin_tolerance
+        assert j["refined_tolerance"] == s.refined_tolerance
+        assert j["refined_saturated"] is True and j["refined_holds"] is True
+        # the refined event sits at the small-r edge, where the round-off is largest
+        assert s.refined_worst_point["r"] < 0.1
+    rows = [line for line in format_audit(res).splitlines() if line[:3] in ALL]
+    assert len(rows) == 4
+    for line in rows:
+        assert "saturated" in line and line.count("0+-") == 2, line
+
+
+def test_refined_violation_reads_as_a_violation(geometry_cache):
+    # Alcubierre 1994 (published-checks §1): the bubble violates the WEC by an
+    # order-one margin, far beyond its round-off, at the grid and refined minima.
+    res = run("tanh_wall_bubble", points=9, geometry_cache=geometry_cache)
+    s = res.conditions["WEC"]
+    assert not s.holds
+    assert s.refined_holds is False and s.refined_saturated is False
+    assert s.refined_min_margin <= s.min_margin < -1e6 * s.refined_tolerance
+    assert s.refined_tolerance > 0 and s.min_margin_tolerance > 0
+
+
+def test_refined_violation_between_grid_events_is_flagged():
+    # Text only: a condition that holds at every audited grid event but whose
+    # refined minimum is below minus its tolerance gets a mark and a note.
+    from dataclasses import replace
+    from auditor.textout import format_audit
+    res = run("minkowski_cartesian", points=3)
+    nec = res.conditions["NEC"]
+    res.conditions["NEC"] = replace(nec, refined_min_margin=-1e-3, refined_tolerance=1e-12)
+    text = format_audit(res)
+    row = next(line for line in text.splitlines() if line.startswith("NEC"))
+    assert "-0.001!" in row and "saturated" in row
+    assert "! NEC: the refined minimum, between grid events, is below minus its tolerance" in text
+    assert res.exit_code() == 0      # the verdict covers the audited grid events

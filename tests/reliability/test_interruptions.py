@@ -496,10 +496,14 @@ def test_a_small_file_whose_derivatives_explode_is_refused_in_time(tmp_path):
 
 def test_a_grid_that_does_not_fit_in_memory_is_refused_cleanly(tmp_path):
     """Regression (found here): a grid under MAX_GRID_POINTS (310**3 events,
-    ~4.5 GB of result maps) under a 3 GiB address-space limit ended in
-    MemoryError, exit 70, instead of a one-line refusal."""
+    then ~4.5 GB of result maps) under a 3 GiB address-space limit ended in
+    MemoryError, exit 70, instead of a one-line refusal. The maps of 310**3
+    events now take ~2 GiB (auditor.audit.BYTES_PER_EVENT), so the limit here is
+    2 GiB: the grid still does not fit."""
+    from auditor.audit import BYTES_PER_EVENT
+    assert 310**3 * BYTES_PER_EVENT > 0.8 * 2 * GiB      # the premise holds
     (tmp_path / "m.toml").write_text(FLAT3)
     res = subprocess.run(auditor_cmd("check", "m.toml", "--points", "310", "--quiet"),
                          cwd=tmp_path, env=child_env(), capture_output=True, text=True,
-                         timeout=120, preexec_fn=_limit_memory(3 * GiB))
+                         timeout=120, preexec_fn=_limit_memory(2 * GiB))
     assert_one_line_error(res.returncode, res.stderr)

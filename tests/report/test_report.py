@@ -100,6 +100,14 @@ def _verdict(c: dict) -> str:
     return "saturated" if c["saturated_fraction"] >= 1.0 else "holds"
 
 
+def _margin(value, tol) -> str:
+    """A margin within its tolerance is zero to round-off (cli-contract "Verdict
+    semantics": saturated) and prints as 0 ± tolerance."""
+    if value is not None and tol is not None and abs(value) <= tol:
+        return "0 ± " + format_number(tol, 2)
+    return format_number(value)
+
+
 def _table1_row(name: str, c: dict) -> str:
     long = {"NEC": "null", "WEC": "weak", "SEC": "strong", "DEC": "dominant"}[name]
     vol = format_number(c["violating_volume"]) if "violating_volume" in c else "—"
@@ -108,7 +116,8 @@ def _table1_row(name: str, c: dict) -> str:
     cross = "consistent" if cx["exact_above_sampled"] + cx["sampled_missed_violations"] == 0 \
         else "inconsistent"
     return _norm(f"{name} {long} {_verdict(c)} {format_percent(c['violating_fraction'])} {vol} "
-                 f"{format_number(c['min_margin'])} {format_number(c['refined_min_margin'])} "
+                 f"{_margin(c['min_margin'], c['min_margin_tolerance'])} "
+                 f"{_margin(c['refined_min_margin'], c['refined_tolerance'])} "
                  f"{integral} {cross}")
 
 
@@ -189,6 +198,8 @@ def test_schwarzschild_report(schwarzschild):
     assert schwarzschild["code"] == 0
     for name, c in j["conditions"].items():
         assert _table1_row(name, c) in text
+        # vacuum: the refined minimum is zero within its round-off, shown as such
+        assert c["refined_saturated"] and _norm("0 ± ") in _table1_row(name, c)
     assert "crew" not in j
     assert _norm("No worldline followed: the metric file gives no [crew].start.") in text
     assert _norm("Volumes, volume integrals and energies are defined when the three spatial "
@@ -239,7 +250,9 @@ def _check_latex(tex: str, j: dict):
         cells = re.sub(r"\\begin\{tabular\}.*?\\end\{tabular\}", "X", rows[0]).split("&")
         assert len(cells) == 5
         assert cells[1].strip() == _verdict(c)
-        assert cells[2].strip() == latex_number(c["min_margin"])
+        tol = c["min_margin_tolerance"]
+        assert cells[2].strip() == (latex_number(c["min_margin"]) if abs(c["min_margin"]) > tol
+                                    else "$0 \\pm " + latex_number(tol, 2)[1:])
         if "violating_volume" in c and not isinstance(c["violating_volume"], list):
             assert cells[3].strip() == latex_number(c["violating_volume"])
             assert cells[4].strip().rstrip("\\").strip() == latex_number(c["volume_integral"])

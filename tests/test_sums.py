@@ -1,0 +1,44 @@
+"""Exact sums: the correctly rounded sum whatever the split into chunks.
+
+Outside reference: ``math.fsum`` (Python's correctly rounded sum, Shewchuk's
+algorithm).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from auditor.sums import ExactSum
+
+
+@pytest.mark.parametrize("data", ["wide", "cancelling"])
+def test_exact_sum_is_the_correctly_rounded_sum_whatever_the_split(data, rng):
+    if data == "wide":      # 600 decades, exact cancellations, subnormals
+        x = rng.standard_normal(20000) * 10.0 ** rng.integers(-300, 300, 20000)
+        x = np.concatenate([x, -x[:5000], rng.standard_normal(3000) * 1e-310])
+    else:                   # small terms beside large ones that cancel
+        x = np.concatenate([rng.standard_normal(20000), [1e17, -1e17, 3e16, -3e16]])
+    rng.shuffle(x)
+    groups = rng.integers(0, 3, x.size)
+    expected = [math.fsum(x[groups == g]) for g in range(3)]
+    for _ in range(3):
+        total = ExactSum(3)
+        cuts = np.sort(rng.integers(0, x.size, 11))
+        for part, grp in zip(np.split(x, cuts), np.split(groups, cuts)):
+            total.add(part, grp)
+        assert total.values() == expected
+    if data == "cancelling":
+        assert float(np.sum(x)) != math.fsum(x)      # a plain float sum would not do
+
+
+def test_exact_sum_non_finite_values_propagate():
+    total = ExactSum()
+    total.add([1.0, np.inf, 2.0])
+    assert total.value() == np.inf
+    total.add([-np.inf])
+    assert np.isnan(total.value())
+    empty = ExactSum(2)
+    assert empty.values() == [0.0, 0.0]
