@@ -106,6 +106,11 @@ _RIC_ROWS = np.array([[_FULL_ROWS[64 * a + 16 * b + 4 * c + d] for a in range(4)
                        for c in range(4)] for (b, d) in _PAIRS])
 _RIC_SIGN = np.array([[_FULL_SIGN[64 * a + 16 * b + 4 * c + d] for a in range(4)
                        for c in range(4)] for (b, d) in _PAIRS])
+# Rows of g^ac (flattened 4×4) beside each of those terms, (10, 16).
+_RIC_GINV = np.array([[4 * a + c for a in range(4) for c in range(4)]] * 10)
+# First and second index of each bivector pair.
+_BI = np.array([p[0] for p in BIVECTORS])
+_BJ = np.array([p[1] for p in BIVECTORS])
 
 
 def bivector_weights(E: np.ndarray, absolute: bool = False) -> np.ndarray:
@@ -117,8 +122,7 @@ def bivector_weights(E: np.ndarray, absolute: bool = False) -> np.ndarray:
     """
     e = np.abs(E) if absolute else E
     e = np.moveaxis(e, 0, -1)                        # (4 legs, 4 comps, N)
-    i = np.array([p[0] for p in BIVECTORS])
-    j = np.array([p[1] for p in BIVECTORS])
+    i, j = _BI, _BJ
     # e_â^α e_b̂^β for all (Â, A): legs (i[Â], j[Â]), components (i[A], j[A]).
     x = e[i][:, i] * e[j][:, j]                      # (6,6,N)
     y = e[i][:, j] * e[j][:, i]
@@ -213,15 +217,12 @@ def curvature_from_rows(rows: np.ndarray, extra_abs: np.ndarray | None = None) -
     # Ricci R_bd = Σ_ac g^ac R_abcd over the signed copies (10,N)
     gflat = gi.reshape(16, n)
     r22 = np.concatenate([r21, np.zeros((1, n))])
-    ric10 = np.einsum("pkn,pkn->pn", gflat[np.array([[4 * a + c for a in range(4)
-                                                       for c in range(4)]] * 10)],
-                      r22[_RIC_ROWS] * _RIC_SIGN[:, :, None])
+    ric10 = np.einsum("pkn,pkn->pn", gflat[_RIC_GINV], r22[_RIC_ROWS] * _RIC_SIGN[:, :, None])
     ricci = np.moveaxis(ric10[_PIDX], -1, 0)                         # (N,4,4)
     rscalar = np.einsum("nab,nab->n", ginv, ricci)
     einstein = ricci - 0.5 * rscalar[:, None, None] * g
     # Kretschmann K = 4 tr(R 𝒢 R 𝒢) with the bivector metric 𝒢 (6,6,N)
-    i = np.array([p[0] for p in BIVECTORS])
-    j = np.array([p[1] for p in BIVECTORS])
+    i, j = _BI, _BJ
     biv_g = gi[i][:, i] * gi[j][:, j] - gi[i][:, j] * gi[j][:, i]
     X = np.einsum("abn,bcn->acn", r21[R21], biv_g)
     kterms = X * np.swapaxes(X, 0, 1)
