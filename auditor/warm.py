@@ -115,11 +115,6 @@ class WarmMetric(Metric):
 
     __hash__ = None
 
-    @property
-    def full_region(self) -> Region | None:
-        """The region with its symbolic exclusion (built on first use)."""
-        return self._full().region
-
 
 class _WarmRegion(Region):
     """A restored region: ``exclude`` (symbolic) is rebuilt on first use."""

@@ -326,14 +326,6 @@ def _dec_value(rho, b, A, s1, s2):
     return rho + ((s1 + s2) * b).sum(axis=1) + (s1 * _matvec(A, s2)).sum(axis=1)
 
 
-def _partner(b, A, s, prev):
-    """argmin over unit s2 of b·s2 + sᵀ A s2: −(b + A s)/|b + A s|; ``prev`` if that vanishes."""
-    r = b + _matvec(A, s)
-    nr = np.sqrt((r * r).sum(axis=1))[:, None]
-    ok = nr > 0
-    return np.where(ok, -r / np.where(ok, nr, 1.0), prev)
-
-
 def _unit(v):
     return v / np.sqrt((v * v).sum(axis=-1))[..., None]
 
@@ -430,7 +422,8 @@ def _dec_newton(rho, b, A, s1, s2, F, iters):
 
 
 def _cf_partner(b, A, s, prev):
-    """Component-first ``_partner``: b, s, prev (3, M), A (3, 3, M)."""
+    """argmin over unit s2 of b·s2 + sᵀ A s2: −(b + A s)/|b + A s|, ``prev`` where
+    that vanishes; component-first: b, s, prev (3, M), A (3, 3, M)."""
     r = A[:, 0] * s[0]
     r += A[:, 1] * s[1]
     r += A[:, 2] * s[2]

@@ -27,7 +27,7 @@ K = 4 tr(R 𝒢 R 𝒢) (each bivector pair counted once instead of twice on eac
 side).
 
 Point-first arrays (``riemann`` (N,4,4,4,4), ``christoffel`` (N,4,4,4) with
-Γ[n,a,b,c] = Γ^a_bc, ``scale_terms``) are built on first use only.
+Γ[n,a,b,c] = Γ^a_bc) are built on first use only.
 
 Round-off: ``scale21`` is, per independent component, the size of the terms
 that cancel in forming R_AB (the sum of their absolute values); the error of
@@ -45,7 +45,7 @@ import numpy as np
 
 from .layout import D2IDX, DIDX, GIDX
 
-__all__ = ["Curvature", "split_raw", "curvature_from_raw", "curvature_from_rows",
+__all__ = ["Curvature", "curvature_from_raw", "curvature_from_rows",
            "BIVECTORS", "R21", "bivector_weights"]
 
 _PAIRS = list(combinations_with_replacement(range(4), 2))         # 10 symmetric pairs
@@ -129,15 +129,6 @@ def bivector_weights(E: np.ndarray, absolute: bool = False) -> np.ndarray:
     return x + y if absolute else x - y
 
 
-def split_raw(raw: np.ndarray):
-    """Unpack the kernel output (150, N) into g, dg, d2g (point-first)."""
-    r = np.ascontiguousarray(raw.T)          # (N, 150)
-    g = r[:, GIDX]                           # (N,4,4)
-    dg = r[:, DIDX]                          # (N,4,4,4)
-    d2g = r[:, D2IDX]                        # (N,4,4,4,4)
-    return g, dg, d2g
-
-
 class Curvature:
     """Geometric quantities on N points (geometric units; layout above).
 
@@ -145,7 +136,7 @@ class Curvature:
     independent Riemann components and their round-off scale, ``christoffel10``
     (4,10,N) Γ^a_(bc). Point-first: ``g``, ``ginv``, ``ricci``, ``einstein``
     (N,4,4); ``ricci_scalar``, ``kretschmann``, ``kretschmann_scale``, ``scale``
-    (N,); ``dg``, ``christoffel``, ``riemann``, ``scale_terms`` on first use.
+    (N,); ``dg``, ``christoffel``, ``riemann`` on first use.
     """
 
     def __init__(self, rows, g, ginv, christoffel10, r21, scale21, ricci, ricci_scalar,
@@ -171,21 +162,11 @@ class Curvature:
         """(N,4,4,4) with Γ[n,a,b,c] = Γ^a_bc."""
         return np.moveaxis(self.christoffel10[:, _PIDX], -1, 0)
 
-    def _full(self, x21: np.ndarray, signed: bool) -> np.ndarray:
-        x = np.concatenate([x21, np.zeros((1, x21.shape[1]))])[_FULL_ROWS]
-        if signed:
-            x = x * _FULL_SIGN[:, None]
-        return np.ascontiguousarray(x.T).reshape(-1, 4, 4, 4, 4)
-
     @cached_property
     def riemann(self) -> np.ndarray:
         """(N,4,4,4,4) with R[n,a,b,c,d] = R_abcd."""
-        return self._full(self.r21, True)
-
-    @cached_property
-    def scale_terms(self) -> np.ndarray:
-        """(N,4,4,4,4): round-off scale of each R_abcd (0 where it is exactly 0)."""
-        return self._full(self.scale21, False)
+        x = np.concatenate([self.r21, np.zeros((1, len(self)))])[_FULL_ROWS]
+        return np.ascontiguousarray((x * _FULL_SIGN[:, None]).T).reshape(-1, 4, 4, 4, 4)
 
     def riemann6(self) -> np.ndarray:
         """R_AB as a symmetric (6,6,N) array."""

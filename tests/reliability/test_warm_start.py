@@ -89,7 +89,6 @@ def test_the_second_open_is_warm_and_equal(cache_dir, metric_file):
     # Symbolic fields are rebuilt on first use and equal the cold ones.
     assert warm.g == cold.g and warm.g_display == cold.g_display
     assert [d.name for d in warm.definitions] == ["f"]
-    assert warm.full_region.exclude == cold.region.exclude
     assert warm.region.exclude == cold.region.exclude      # rebuilt on first use, not None
     assert "WarmMetric" in repr(warm) and warm == cold
     # Parameters change without leaving the warm path.
