@@ -17,14 +17,17 @@ import numpy as np
 
 from .conditions.hawking_ellis import classify
 from .conditions.margins import margins_with_observers
-from .conditions.stress import MARGIN_FACTOR, component_tolerance, frame_stress
+from . import native
+from .conditions.stress import MARGIN_FACTOR, TOL_FACTOR, component_tolerance, frame_stress
 from .crew.tidal import tidal_from_bivectors
-from .frames import auditing_frame, static
+from .frames import auditing_frame, principal, static
+from .geometry.curvature import _NATIVE_TABLES
 from .geometry.points import PointBatch
 
 __all__ = ["CONDITIONS", "PointFields", "analyse", "margin_tolerances"]
 
 CONDITIONS = ("NEC", "WEC", "SEC", "DEC")
+_EPS = np.finfo(float).eps
 
 
 def margin_tolerances(t_tol: np.ndarray) -> dict[str, np.ndarray]:
@@ -82,9 +85,19 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
     curv = batch.curvature
     if curv is None:
         return None
-    E, eul = auditing_frame(curv.g, curv.ginv)
-    T = frame_stress(curv.einstein, E)
-    t_tol = component_tolerance(curv, E)
+    fast = native.available()
+    if fast:
+        E, eul = native.eulerian(curv.g, curv.ginv)
+        if not eul.all():
+            E[~eul] = principal(curv.g[~eul])
+        parts = native.frame(E, curv.einstein, curv.r21, curv.scale21, _NATIVE_TABLES,
+                             tidal=crew_frame != "static")
+        T = parts["T"]
+        t_tol = TOL_FACTOR * _EPS * parts["scale"]
+    else:
+        E, eul = auditing_frame(curv.g, curv.ginv)
+        T = frame_stress(curv.einstein, E)
+        t_tol = component_tolerance(curv, E)
     out = PointFields(batch=batch, stress=T, t_tol=t_tol, frame_eulerian=eul, tetrad=E)
     out.tolerances = margin_tolerances(t_tol)
 
@@ -112,14 +125,24 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
         Ec, cok = E, eul
     lam = np.full((len(T), 3), np.nan)
     vec = np.full((len(T), 3, 3), np.nan)
-    if cok.any():
-        lam[cok], vec[cok] = np.linalg.eigh(tidal_from_bivectors(curv.riemann6()[:, :, cok],
-                                                                  Ec[cok]))
-    out.tidal_eigenvalues, out.tidal_vectors = lam, vec
     # Round-off of E_ij = R_{i0j0}: frame components of Riemann carry the same
     # bound as T's (conditions/stress.py), in the crew's own frame.
-    out.tidal_tol = np.where(cok, component_tolerance(curv, np.where(
-        cok[:, None, None], Ec, 0.0)), np.nan)
+    if fast:
+        if crew_frame == "static":
+            parts = native.frame(np.where(cok[:, None, None], Ec, 0.0), curv.einstein,
+                                 curv.r21, curv.scale21, _NATIVE_TABLES)
+            crew_tol = TOL_FACTOR * _EPS * parts["scale"]
+        else:
+            crew_tol = t_tol
+        lam[cok], vec[cok] = parts["eigenvalues"][cok], parts["vectors"][cok]
+        out.tidal_tol = np.where(cok, crew_tol, np.nan)
+    else:
+        if cok.any():
+            lam[cok], vec[cok] = np.linalg.eigh(tidal_from_bivectors(
+                curv.riemann6()[:, :, cok], Ec[cok]))
+        out.tidal_tol = np.where(cok, component_tolerance(curv, np.where(
+            cok[:, None, None], Ec, 0.0)), np.nan)
+    out.tidal_eigenvalues, out.tidal_vectors = lam, vec
     out.station_accel = station_acceleration(curv)
     return out
 

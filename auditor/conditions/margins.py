@@ -123,6 +123,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .. import native
 from .sampled import fibonacci_directions
 
 __all__ = [
@@ -146,7 +147,7 @@ _SECULAR_MAX_ITER = 200
 # DEC search defaults.
 DEC_DIRECTIONS = 300   # Fibonacci starts: spacing ~ sqrt(4π/300) ≈ 0.2 rad
 DEC_STARTS = 6         # best Fibonacci starts kept per point
-_DEC_ALTERNATIONS = 30
+_DEC_ALTERNATIONS = 4 
 _DEC_NEWTON = 20      # Newton steps at most (rows stop when converged)
 _DEC_POLISHED = 3     # starts per point polished by Newton
 _DEC_BACKTRACK = 6    # step shortenings (by 4 each) tried where a Newton step fails
@@ -540,6 +541,8 @@ def dec_margin(T, *, n_dirs: int = DEC_DIRECTIONS, n_starts: int = DEC_STARTS):
     T = _check_T(T)
     if int(n_dirs) < 1 or int(n_starts) < 1:
         raise ValueError("`n_dirs` and `n_starts` must be positive integers.")
+    if native.available():
+        return _margins_native(T, None, int(n_dirs), int(n_starts))["DEC"]
     rho, b, A, scale = _scaled(T)
     val, s1, s2 = _dec_search(rho, b, A, _sphere_min(rho, b, A), int(n_dirs), int(n_starts))
     return val * scale, s1, s2
@@ -636,6 +639,8 @@ def margins_with_observers(T, *, settled=None, **dec_options):
     n_starts = int(dec_options.get("n_starts", DEC_STARTS))
     if n_dirs < 1 or n_starts < 1:
         raise ValueError("`n_dirs` and `n_starts` must be positive integers.")
+    if native.available():
+        return _margins_native(T, settled, n_dirs, n_starts)
     rho, b, A, scale = _scaled(T)
     sphere = _sphere_min(rho, b, A)
     valN, sN, lam, Q, beta, t = sphere
@@ -649,6 +654,27 @@ def margins_with_observers(T, *, settled=None, **dec_options):
     out["SEC"] = (vs * scale, ws)
     vd, s1, s2 = _dec_search(rho, b, A, sphere, n_dirs, n_starts, settled)
     out["DEC"] = (vd * scale, s1, s2)
+    return out
+
+
+def _margins_native(T, settled, n_dirs, n_starts):
+    """:func:`margins_with_observers` through the compiled loops (auditor.native):
+    the same steps, event by event."""
+    n = T.shape[0]
+    skip = np.zeros(n) if settled is None else np.asarray(settled, dtype=float)
+    o, Q = native.margins(T, skip)
+    scale = o[:, 0]
+    out = {"NEC": (o[:, 1] * scale, o[:, 2:5]), "WEC": (o[:, 5] * scale, o[:, 6:9]),
+           "SEC": (o[:, 9] * scale, o[:, 10:13])}
+    val, s1, s2 = o[:, 1].copy(), o[:, 2:5].copy(), o[:, 2:5].copy()
+    todo = np.flatnonzero(o[:, 13] != 0)
+    if todo.size:
+        Ts = T[todo] / scale[todo, None, None]
+        v, a, c = native.dec(Ts[:, 0, 0], Ts[:, 0, 1:], Ts[:, 1:, 1:], o[todo, 2:5], Q[todo],
+                             fibonacci_directions(n_dirs), n_starts, _DEC_ALTERNATIONS,
+                             _DEC_NEWTON, _DEC_POLISHED, _DEC_BACKTRACK)
+        val[todo], s1[todo], s2[todo] = v, a, c
+    out["DEC"] = (val * scale, s1, s2)
     return out
 
 

@@ -43,9 +43,10 @@ from itertools import combinations_with_replacement
 
 import numpy as np
 
+from .. import native
 from .layout import D2IDX, DIDX, GIDX
 
-__all__ = ["Curvature", "curvature_from_raw", "curvature_from_rows",
+__all__ = ["Curvature", "curvature_from_raw", "curvature_from_rows", "curvature_from_rows_numpy",
            "BIVECTORS", "R21", "bivector_weights"]
 
 _PAIRS = list(combinations_with_replacement(range(4), 2))         # 10 symmetric pairs
@@ -173,12 +174,33 @@ class Curvature:
         return self.r21[R21]
 
 
+# Index tables of the compiled loop (auditor/_native.c), the same as above.
+_NATIVE_TABLES = {"gidx": GIDX.ravel(), "g1": _G1.ravel(), "g2": _G2.ravel(), "g3": _G3.ravel(),
+                  "trows": _T_ROWS.ravel(), "q1": _T["q1"], "q2": _T["q2"],
+                  "ric_rows": _RIC_ROWS, "ric_ginv": _RIC_GINV, "ric_sign": _RIC_SIGN,
+                  "pidx": _PIDX.ravel(), "bi": _BI, "bj": _BJ, "r21": R21.ravel()}
+
+
 def curvature_from_rows(rows: np.ndarray, extra_abs: np.ndarray | None = None) -> Curvature:
     """Assemble Γ, Riemann, Ricci, Einstein and Kretschmann from kernel rows (150,N).
 
     ``extra_abs`` adds an absolute uncertainty of the Riemann components per
-    point (used where derivatives were obtained as limits).
+    point (used where derivatives were obtained as limits). The compiled loop
+    of :mod:`auditor.native` does the same work event by event where it is
+    built; :func:`curvature_from_rows_numpy` is the reference.
     """
+    n = rows.shape[1]
+    if native.available():
+        extra = np.zeros(n) if extra_abs is None else np.asarray(extra_abs, dtype=float)
+        o = native.curvature(rows, extra, _NATIVE_TABLES)
+        return Curvature(rows, o["g"], o["ginv"], o["up"], o["r21"], o["scale21"], o["ricci"],
+                         o["rscalar"], o["einstein"], o["k"][0], o["k"][1])
+    return curvature_from_rows_numpy(rows, extra_abs)
+
+
+def curvature_from_rows_numpy(rows: np.ndarray, extra_abs: np.ndarray | None = None
+                              ) -> Curvature:
+    """:func:`curvature_from_rows` in NumPy, whole batches at a time."""
     n = rows.shape[1]
     g = np.moveaxis(rows[GIDX], -1, 0)                               # (N,4,4)
     ginv = np.linalg.inv(g)

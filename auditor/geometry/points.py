@@ -21,6 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .. import native
 from .curvature import Curvature, curvature_from_rows
 from .compiled import MetricKernel, ScalarKernel, kernel_from_source
 from .layout import GIDX, N_RAW
@@ -73,6 +74,11 @@ class PointBatch:
     def counts(self) -> dict[str, int]:
         """Excluded events by reason (every reason present, zeros included)."""
         return {r: int(np.count_nonzero(self.reason == _CODE[r])) for r in REASONS}
+
+
+def _columns(raw: np.ndarray, keep: np.ndarray) -> np.ndarray:
+    """The columns of ``raw`` where ``keep``, C-contiguous (``raw`` itself if all)."""
+    return raw if keep.all() else np.take(raw, np.flatnonzero(keep), axis=1)
 
 
 class Geometry:
@@ -167,9 +173,14 @@ class Geometry:
         limit = np.zeros(n, dtype=bool)
         extra_abs = np.zeros(n)
 
-        g_finite = np.isfinite(raw[:10]).all(axis=0) & np.isfinite(x).all(axis=1)
+        flags = native.gscreen(raw, GIDX, _DEGENERATE_RTOL) if native.available() else None
+        if flags is not None:
+            g_finite = (flags != 1) & np.isfinite(x).all(axis=1)
+            d_bad = g_finite & ((flags & 2) != 0)
+        else:
+            g_finite = np.isfinite(raw[:10]).all(axis=0) & np.isfinite(x).all(axis=1)
+            d_bad = g_finite & ~np.isfinite(raw[10:]).all(axis=0)
         reason[~g_finite] = _CODE["singular"]
-        d_bad = g_finite & ~np.isfinite(raw[10:]).all(axis=0)
         if d_bad.any():
             idx = np.flatnonzero(d_bad)
             est, ok, err = self._limit(x[idx], p)
@@ -192,23 +203,27 @@ class Geometry:
 
         live = np.flatnonzero(reason == 0)
         if live.size:
-            lam = np.linalg.eigvalsh(np.moveaxis(raw[:, live][GIDX], -1, 0))
-            big = np.abs(lam).max(axis=1)
-            degenerate = np.abs(lam).min(axis=1) <= _DEGENERATE_RTOL * big
-            lorentz = (lam < 0).sum(axis=1) == 1
+            if flags is not None:       # the same test, in the compiled screen
+                degenerate = (flags[live] & 4) != 0
+                lorentz = (flags[live] & 8) == 0
+            else:
+                lam = np.linalg.eigvalsh(np.moveaxis(raw[:, live][GIDX], -1, 0))
+                big = np.abs(lam).max(axis=1)
+                degenerate = np.abs(lam).min(axis=1) <= _DEGENERATE_RTOL * big
+                lorentz = (lam < 0).sum(axis=1) == 1
             reason[live[degenerate]] = _CODE["degenerate"]
             reason[live[~degenerate & ~lorentz]] = _CODE["not_lorentzian"]
         ok = reason == 0
         curv = None
         if ok.any():
-            curv = curvature_from_rows(raw[:, ok], extra_abs[ok])
+            curv = curvature_from_rows(_columns(raw, ok), extra_abs[ok])
             bad = ~(np.isfinite(curv.r21).all(axis=0) & np.isfinite(curv.scale)
                     & np.isfinite(curv.einstein).reshape(len(curv), -1).all(axis=1))
             if bad.any():  # overflow in assembly: treat as singular
                 okidx = np.flatnonzero(ok)
                 reason[okidx[bad]] = _CODE["singular"]
                 ok = reason == 0
-                curv = curvature_from_rows(raw[:, ok], extra_abs[ok]) if ok.any() else None
+                curv = curvature_from_rows(_columns(raw, ok), extra_abs[ok]) if ok.any() else None
         return PointBatch(x=x, reason=reason, limit=limit & ok, curvature=curv)
 
     def _limit(self, x: np.ndarray, p: np.ndarray):

@@ -1,0 +1,130 @@
+"""The optional compiled accelerator, ``auditor._native``.
+
+The C loops in ``auditor/_native.c`` compute, event by event, what the NumPy
+routines of :mod:`auditor.geometry.curvature` and
+:mod:`auditor.conditions.margins` compute for whole batches; those routines
+stay the reference, and the fallback where the extension was not built (no C
+compiler at install time). Setting ``AUDITOR_NO_NATIVE=1`` forces the NumPy
+code. Results agree to round-off (the tests compare both), and each event is
+computed on its own, so nothing depends on how events are batched.
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+
+__all__ = ["available", "curvature", "margins", "dec"]
+
+try:  # pragma: no branch - depends on the build
+    from . import _native as _lib
+except ImportError:   # built without a C compiler
+    _lib = None
+
+
+def available() -> bool:
+    """True where the compiled loops are built and not switched off."""
+    return _lib is not None and not os.environ.get("AUDITOR_NO_NATIVE")
+
+
+def _f(a, shape) -> np.ndarray:
+    a = np.ascontiguousarray(a, dtype=np.float64)
+    if a.shape != shape:
+        raise ValueError(f"expected shape {shape}, got {a.shape}")
+    return a
+
+
+def _i(a) -> np.ndarray:
+    return np.ascontiguousarray(a, dtype=np.int64)
+
+
+def curvature(rows: np.ndarray, extra: np.ndarray, tables: dict) -> dict:
+    """Curvature from kernel rows (150, N): the arrays of
+    :func:`auditor.geometry.curvature.curvature_from_rows`."""
+    n = rows.shape[1]
+    rows = _f(rows, (150, n))
+    extra = _f(extra, (n,))
+    out = {"g": np.empty((n, 4, 4)), "ginv": np.empty((n, 4, 4)),
+           "ricci": np.empty((n, 4, 4)), "einstein": np.empty((n, 4, 4)),
+           "up": np.empty((4, 10, n)), "r21": np.empty((21, n)), "scale21": np.empty((21, n)),
+           "rscalar": np.empty(n), "k": np.empty((2, n))}
+    t = tables
+    _lib.curvature(n, rows, extra, _i(t["gidx"]), _i(t["g1"]), _i(t["g2"]), _i(t["g3"]),
+                   _i(t["trows"]), _i(t["q1"]), _i(t["q2"]), _i(t["ric_rows"]),
+                   _i(t["ric_ginv"]), _f(t["ric_sign"], (10, 16)), _i(t["pidx"]),
+                   _i(t["bi"]), _i(t["bj"]), _i(t["r21"]),
+                   out["g"], out["ginv"], out["ricci"], out["einstein"], out["up"],
+                   out["r21"], out["scale21"], out["rscalar"], out["k"])
+    return out
+
+
+def margins(T: np.ndarray, settled: np.ndarray):
+    """NEC sphere, WEC and SEC balls of symmetrised frame tensors T (N, 4, 4).
+
+    Returns (out (N, 20), Q (N, 3, 3)); columns of ``out``: scale, NEC value,
+    s (3), WEC value, w (3), SEC value, w (3), DEC search needed, secular root
+    t, eigenvalues λ (3), hard case, unused. Values are in units of T / scale.
+    """
+    n = T.shape[0]
+    T = _f(T, (n, 4, 4))
+    out = np.empty((n, 20))
+    Q = np.empty((n, 3, 3))
+    _lib.margins(n, T, _f(settled, (n,)), out, Q)
+    return out, Q
+
+
+def dec(rho, b, A, sN, Q, dirs, n_starts, alternations, newton, polished, backtrack):
+    """The DEC search of :func:`auditor.conditions.margins._dec_block`, per
+    event; returns (value, s1, s2) in scaled units."""
+    n = rho.shape[0]
+    dirs = np.ascontiguousarray(np.asarray(dirs, dtype=np.float64).T)     # (3, K)
+    out = np.empty((n, 7))
+    _lib.dec(n, _f(rho, (n,)), _f(b, (n, 3)), _f(A, (n, 3, 3)), _f(sN, (n, 3)),
+             _f(Q, (n, 3, 3)), dirs, dirs.shape[1], min(int(n_starts), dirs.shape[1]),
+             int(alternations), int(newton), int(polished), int(backtrack), out)
+    return out[:, 0], out[:, 1:4], out[:, 4:7]
+
+
+def eulerian(g: np.ndarray, ginv: np.ndarray):
+    """Eulerian tetrads (N, 4, 4) and the mask where they are defined
+    (:func:`auditor.frames.tetrads.eulerian`, event by event)."""
+    n = g.shape[0]
+    E = np.empty((n, 4, 4))
+    ok = np.empty(n)
+    _lib.eulerian(n, _f(g, (n, 4, 4)), _f(ginv, (n, 4, 4)), E, ok)
+    return E, ok != 0
+
+
+def frame(E: np.ndarray, einstein: np.ndarray, r21: np.ndarray, scale21: np.ndarray,
+          tables: dict, tidal: bool = True) -> dict:
+    """Frame stress T = E G Eᵀ/8π (symmetrised), the round-off scale of the
+    frame components (max |W| S |W|ᵀ) and, if asked, the tidal tensor
+    E_ij = R_{i0j0} with its ascending eigenvalues and eigenvectors (columns)."""
+    n = E.shape[0]
+    out = {"T": np.empty((n, 4, 4)), "scale": np.empty(n), "tidal": np.empty((n, 3, 3)),
+           "eigenvalues": np.empty((n, 3)), "vectors": np.empty((n, 3, 3))}
+    _lib.frame(n, _f(E, (n, 4, 4)), _f(einstein, (n, 4, 4)), _f(r21, (21, n)),
+               _f(scale21, (21, n)), _i(tables["r21"]), _i(tables["bi"]), _i(tables["bj"]),
+               out["T"], out["scale"], out["tidal"], out["eigenvalues"], out["vectors"],
+               1 if tidal else 0)
+    return out
+
+
+def he_screen(T: np.ndarray, tol: np.ndarray, k_iv: float, c_split: float) -> np.ndarray:
+    """Hawking–Ellis code of the clear cases (0, 1 or 4) and −1 where the full
+    classification of :mod:`auditor.conditions.hawking_ellis` must decide."""
+    n = T.shape[0]
+    code = np.empty(n)
+    _lib.he_screen(n, _f(T, (n, 4, 4)), _f(tol, (n,)), code, float(k_iv), float(c_split))
+    return code.astype(np.int64)
+
+
+def gscreen(rows: np.ndarray, gidx: np.ndarray, rtol: float) -> np.ndarray:
+    """Per event: 1 g not finite; otherwise 2 if a derivative is not finite,
+    plus 4 if g is degenerate (smallest |eigenvalue| ≤ rtol × largest) or 8 if
+    its signature is not Lorentzian; 0 when all is well."""
+    n = rows.shape[1]
+    flags = np.empty(n)
+    _lib.gscreen(n, _f(rows, (150, n)), _i(gidx.ravel()), float(rtol), flags)
+    return flags.astype(np.int64)

@@ -1,0 +1,116 @@
+"""The compiled per-event loops (auditor/_native.c) against the NumPy reference.
+
+Both implementations carry out the same steps (auditor/native.py); they may
+differ in the order of floating-point sums, so they are compared at the
+round-off of each quantity: a few ε times the size of the cancelling terms
+(``scale21`` for curvature, max|T_âb̂| for margins — the bounds documented in
+auditor/geometry/curvature.py and auditor/conditions/margins.py). Random tests
+print their seed (fixture ``rng``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from auditor import native
+from auditor.conditions import margins as M
+from auditor.geometry.curvature import curvature_from_rows, curvature_from_rows_numpy
+from auditor.grid import Grid
+
+pytestmark = pytest.mark.skipif(not native.available(),
+                                reason="compiled accelerator not built here")
+
+EPS = np.finfo(float).eps
+
+
+def _raw_rows(geometry_cache, name, points=9):
+    from tests.conftest import SAMPLES_DIR
+    from auditor.metric import load_metric
+    metric = load_metric(SAMPLES_DIR / name, points=points)
+    geo = geometry_cache.path(SAMPLES_DIR / name)
+    grid = Grid.from_region(metric)
+    raw = geo.raw(grid.events(0, grid.size), geo.params(metric.parameters))
+    return raw[:, np.isfinite(raw).all(axis=0)]
+
+
+@pytest.mark.parametrize("name", ["tanh_wall_bubble.toml", "kerr_boyer_lindquist.toml"])
+def test_curvature_matches_numpy(geometry_cache, name):
+    rows = _raw_rows(geometry_cache, name)
+    a, b = curvature_from_rows(rows), curvature_from_rows_numpy(rows)
+    bound = 64 * EPS * b.scale                       # per event: round-off of Riemann
+    assert np.all(np.abs(a.r21 - b.r21) <= bound)
+    assert np.allclose(a.scale21, b.scale21, rtol=1e-13, atol=0)
+    assert np.allclose(a.g, b.g, rtol=0, atol=0)
+    ginv_size = np.abs(b.ginv).max(axis=(1, 2))
+    assert np.all(np.abs(a.ginv - b.ginv).max(axis=(1, 2)) <= 1e-12 * ginv_size)
+    # Ricci and Einstein sum ≤ 16 components times g^ab: bound on that scale
+    ein_bound = 64 * EPS * b.scale * np.abs(b.ginv).max(axis=(1, 2)) ** 2 * 16
+    assert np.all(np.abs(a.einstein - b.einstein).max(axis=(1, 2)) <= ein_bound + 1e-300)
+    assert np.all(np.abs(a.kretschmann - b.kretschmann) <= 1e-12 * b.kretschmann_scale)
+    assert np.allclose(a.christoffel10, b.christoffel10, rtol=1e-12, atol=1e-14)
+
+
+def _tensors(rng, n):
+    """Gaussian tensors, nearly isotropic stresses with large momentum density,
+    large energy flux, and tensors with exact zeros."""
+    T = rng.normal(size=(n, 4, 4))
+    T = T + np.swapaxes(T, 1, 2)
+    q = n // 4
+    T[q:2 * q, 1:, 1:] = rng.normal(size=(q, 1, 1)) * np.eye(3) + 1e-4 * T[q:2 * q, 1:, 1:]
+    T[2 * q:3 * q, 0, :] *= 5.0
+    T[2 * q:3 * q, :, 0] *= 5.0
+    T[3 * q:, 1:, 0] = T[3 * q:, 0, 1:] = 0.0
+    T[-1] = 0.0
+    return T
+
+
+def test_margins_and_observers_match_numpy(rng, monkeypatch):
+    T = _tensors(rng, 4000)
+    a = M.margins_with_observers(T)
+    monkeypatch.setenv("AUDITOR_NO_NATIVE", "1")
+    assert not native.available()
+    b = M.margins_with_observers(T)
+    tol = 64 * EPS * np.abs(T).max(axis=(1, 2))
+    for c in ("NEC", "WEC", "SEC"):
+        assert np.all(np.abs(a[c][0] - b[c][0]) <= 2 * tol), c
+    # DEC is a global search with the same starts and steps: the two agree
+    # within round-off.
+    assert np.all(a["DEC"][0] <= b["DEC"][0] + tol)
+    assert np.all(b["DEC"][0] <= a["DEC"][0] + tol)
+    # observers attain their margins: T(n + s1, n + s2) at the returned pair
+    rho, bb, A = T[:, 0, 0], T[:, 0, 1:], T[:, 1:, 1:]
+    s1, s2 = a["DEC"][1], a["DEC"][2]
+    val = rho + ((s1 + s2) * bb).sum(1) + np.einsum("ni,nij,nj->n", s1, A, s2)
+    assert np.all(np.abs(val - a["DEC"][0]) <= tol)
+    assert np.allclose(np.linalg.norm(s1, axis=1), 1.0) and np.allclose(
+        np.linalg.norm(s2, axis=1), 1.0)
+
+
+def test_settled_rows_keep_the_nec_pair(rng):
+    T = _tensors(rng, 200)
+    settled = np.zeros(len(T), bool)
+    settled[::2] = True
+    r = M.margins_with_observers(T, settled=settled)
+    assert np.array_equal(r["DEC"][0][settled], r["NEC"][0][settled])
+
+
+def test_batching_does_not_change_a_bit(rng):
+    """Every event is computed on its own: any split gives identical bits."""
+    T = _tensors(rng, 300)
+    whole = M.margins_with_observers(T)
+    parts = [M.margins_with_observers(T[i:i + 7]) for i in range(0, len(T), 7)]
+    for c in ("NEC", "WEC", "SEC", "DEC"):
+        joined = np.concatenate([p[c][0] for p in parts])
+        assert np.array_equal(joined, whole[c][0]), c
+
+
+def test_wrong_buffers_are_refused():
+    """The C side checks sizes itself (a short buffer must not be read past)."""
+    from auditor import _native
+    with pytest.raises(ValueError):
+        _native.margins(10, np.zeros((2, 4, 4)), np.zeros(10), np.zeros((10, 20)),
+                        np.zeros((10, 3, 3)))
+    with pytest.raises((ValueError, BufferError, TypeError)):
+        _native.margins(2, np.zeros((2, 4, 4))[:, ::2], np.zeros(2), np.zeros((2, 20)),
+                        np.zeros((2, 3, 3)))
