@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import os
 import sys
+import threading
 import time
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -335,9 +336,22 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
     checked = _cross_check_events(size)
     acc = _Reduction(grid, metric)
     bounds = [(a, min(a + chunk, size)) for a in range(0, size, chunk)]
-    for (a, b), part in _chunks(metric, geometry, grid, bounds, checked, jobs, dask):
+    # The crew worldline does not depend on the grid: it is followed in a forked
+    # process beside the chunk loop (where the platform forks), and meanwhile a
+    # thread imports what the summaries need.
+    background = [_Background(_prefetch)]
+    if crew and crew_cfg.start is not None:
+        background.append(_Forked(_follow, metric, geometry))
+
+    def started():
+        for job in background[::-1]:                    # fork before any thread starts
+            job.start()
+
+    for (a, b), part in _chunks(metric, geometry, grid, bounds, checked, jobs, dask,
+                                started):
         acc.add(a, b, part)
         bar.update(b)
+    started()                                           # no-op if started already
 
     maps = acc.maps
     audited = acc.audited
@@ -394,11 +408,104 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
         resolved_as_limit=acc.limit, non_eulerian_points=acc.non_eulerian,
         conditions=conditions, energy=energy, tidal=acc.tidal_summary(),
         he_type_counts=types, maps=maps, station=acc.station_summary())
-    if crew and crew_cfg.start is not None:
-        from .crew.worldline import follow
-        result.crew = follow(metric, geometry)
+    background[0].result()
+    if len(background) > 1:
+        result.crew = background[1].result()            # re-raises what it raised
     result.seconds = time.monotonic() - t0
     return result
+
+
+def _prefetch():
+    """Import what the summaries need (SciPy's constants and image labelling)."""
+    import scipy.ndimage  # noqa: F401
+    from . import units
+    units.curvature_s2(1.0, 1.0)
+
+
+def _follow(metric, geometry):
+    from .crew.worldline import follow
+    return follow(metric, geometry)
+
+
+class _Forked:
+    """A function run once in a forked child process (in this process where
+    the platform cannot fork); :meth:`result` returns its value or re-raises
+    its exception. The value and the exception travel pickled through a pipe."""
+
+    def __init__(self, fn, *args):
+        self._fn, self._args = fn, args
+        self._proc = self._recv = None
+        self._inline = None
+
+    def start(self):
+        import multiprocessing as mp
+        if self._proc is not None or self._inline is not None:
+            return
+        if "fork" not in mp.get_all_start_methods():
+            self._inline = _Background(self._fn, *self._args)
+            return
+        ctx = mp.get_context("fork")
+        self._recv, send = ctx.Pipe(duplex=False)
+        self._proc = ctx.Process(target=_forked_child, args=(send, self._fn, self._args),
+                                 daemon=True, name="auditor-worldline")
+        self._proc.start()
+        send.close()
+
+    def result(self):
+        self.start()
+        if self._inline is not None:
+            return self._inline.result()
+        try:
+            kind, value = self._recv.recv()
+        except EOFError:
+            self._proc.join()
+            raise RuntimeError(f"the worldline process ended without a result "
+                               f"(exit code {self._proc.exitcode})") from None
+        finally:
+            self._recv.close()
+        self._proc.join()
+        if kind == "error":
+            raise value
+        return value
+
+
+def _forked_child(send, fn, args):
+    try:
+        out = ("ok", fn(*args))
+    except Exception as exc:   # noqa: BLE001 - handed to the parent
+        out = ("error", exc)
+    send.send(out)
+    send.close()
+
+
+class _Background:
+    """A function run once in a daemon thread; :meth:`result` joins it and
+    returns its value or re-raises its exception. Started only once the chunk
+    processes (if any) have been forked, so that no fork happens while it runs."""
+
+    def __init__(self, fn, *args):
+        self._fn, self._args = fn, args
+        self._thread = None
+        self._value = self._error = None
+
+    def _run(self):
+        try:
+            self._value = self._fn(*self._args)
+        except BaseException as exc:   # noqa: BLE001 - handed to the caller in result()
+            self._error = exc
+
+    def start(self):
+        if self._thread is None:
+            self._thread = threading.Thread(target=self._run, daemon=True,
+                                            name="auditor-background")
+            self._thread.start()
+
+    def result(self):
+        self.start()
+        self._thread.join()
+        if self._error is not None:
+            raise self._error
+        return self._value
 
 
 def _cross_check_events(size: int) -> np.ndarray:
@@ -769,14 +876,18 @@ def dask_client(address: str):
         raise UsageError(f"--dask: cannot reach a Dask scheduler at {address} ({exc})") from exc
 
 
-def _chunks(metric, geometry, grid, bounds, checked, jobs, dask):
-    """Yield ((start, stop), fields) for every chunk, in order, however they are run."""
+def _chunks(metric, geometry, grid, bounds, checked, jobs, dask, started=None):
+    """Yield ((start, stop), fields) for every chunk, in order, however they are run.
+
+    ``started`` is called once the chunks are under way (after any fork)."""
+    started = started or (lambda: None)
     if dask:
         client = dask_client(dask)
         try:
             futs = [client.submit(_chunk_on_dask, metric.path, metric.sha256,
                                   dict(metric.parameters), grid, a, b,
                                   _check_mask(checked, a, b), pure=False) for a, b in bounds]
+            started()
             for (a, b), fut in zip(bounds, futs):
                 yield (a, b), fut.result()
         finally:
@@ -789,9 +900,11 @@ def _chunks(metric, geometry, grid, bounds, checked, jobs, dask):
         with ProcessPoolExecutor(max_workers=jobs, mp_context=mp.get_context("fork")) as pool:
             futs = [pool.submit(_chunk_in_worker, a, b, _check_mask(checked, a, b))
                     for a, b in bounds]
+            started()
             for (a, b), fut in zip(bounds, futs):
                 yield (a, b), fut.result()
         return
+    started()
     for a, b in bounds:
         yield (a, b), chunk_fields(metric, geometry, grid, a, b, _check_mask(checked, a, b))
 

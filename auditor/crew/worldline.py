@@ -36,9 +36,6 @@ from dataclasses import dataclass, field
 from itertools import combinations_with_replacement
 
 import numpy as np
-from scipy.integrate import DOP853
-from scipy.linalg.lapack import dgesv as _dgesv
-from scipy.optimize import minimize_scalar
 
 from .. import units
 from ..errors import PointError
@@ -227,6 +224,8 @@ class _Rhs:
     """Geodesic right-hand side from a kernel of g and ∂g only (50 rows)."""
 
     def __init__(self, metric, params, kernel=None):
+        from scipy.linalg.lapack import dgesv
+        self._dgesv = dgesv
         self.kernel = kernel if kernel is not None else compile_first_derivatives(metric)
         self.p = np.asarray(params, dtype=float)
         self.out = np.empty(50)
@@ -262,7 +261,7 @@ class _Rhs:
         u = y[4:]
         g, dg = self.parts(y[:4])                       # dg[c, a, b] = ∂_c g_ab
         gam_uu = (u @ dg.reshape(4, 16)).reshape(4, 4) @ u - 0.5 * ((dg @ u) @ u)
-        _, _, acc, info = _dgesv(g, gam_uu)
+        _, _, acc, info = self._dgesv(g, gam_uu)
         if info != 0:
             # singular g (a degenerate event): let the step fail or be rejected;
             # the validity check names the event.
@@ -368,6 +367,7 @@ def follow(metric, geometry, *, samples: int = SAMPLES) -> Worldline:
     u0 = gamma * (E[0, 0] + v @ E[0, 1:])
     lapse0 = 1.0 / np.sqrt(-curv.ginv[0, 0, 0])
 
+    from scipy.integrate import DOP853     # here: importing it takes a noticeable time
     rhs = _Rhs(metric, geometry.params(metric.parameters), geometry.first_derivative_kernel())
     solver = DOP853(rhs, 0.0, np.concatenate([x0, u0]), crew.duration, rtol=RTOL, atol=ATOL,
                     max_step=crew.duration / samples)
@@ -436,6 +436,7 @@ def _peak(metric, geometry, path, wl):
     if hi > lo and best > 0:
         # Bounded Brent search (Brent 1973, ch. 5) for the maximum on [lo, hi].
         f = lambda t: -np.nan_to_num(_tidal_g_at(metric, geometry, path, t) / best, nan=0.0)
+        from scipy.optimize import minimize_scalar
         res = minimize_scalar(f, bounds=(lo, hi), method="bounded",
                               options={"xatol": PEAK_XTOL * (hi - lo)})
         if res.success and -res.fun * best > best:
