@@ -211,95 +211,123 @@ static PyObject *py_curvature(PyObject *self, PyObject *args)
     for (int i = 0; i < 36; i++) if (r21idx[i] < 0 || r21idx[i] >= 21) goto bad;
 
     Py_BEGIN_ALLOW_THREADS
-    /* Events in blocks of CB: the block's rows are read and its component-first
-     * outputs written row by row (a few long streams instead of ~230 strided ones). */
+    /* Events in blocks of CB, stored structure-of-arrays (x[component][event]):
+     * the block's rows are read and its outputs written row by row, and every
+     * step but the pivoted inverse runs across the CB events of the block in
+     * its innermost loop (independent operations the compiler vectorises). The
+     * arithmetic of each event, and the order of its sums, is the same as in a
+     * loop over single events. */
     enum { CB = 32 };
-    double in[CB][150], o_up[40][CB], o_r21[21][CB], o_s21[21][CB];
+    double in[150][CB], gi[16][CB], low[40][CB], up[40][CB], r22[22][CB], ric[10][CB];
+    double bg[36][CB], X[36][CB], o_s21[21][CB], acc[CB], acc2[CB], R[CB];
     for (Py_ssize_t e0 = 0; e0 < n; e0 += CB) {
-    Py_ssize_t nb = n - e0 < CB ? n - e0 : CB;
-    for (int r = 0; r < 150; r++)
-        for (Py_ssize_t j = 0; j < nb; j++) in[j][r] = rows[(Py_ssize_t)r * n + e0 + j];
-    for (Py_ssize_t j = 0; j < nb; j++) {
-        Py_ssize_t e = e0 + j;
-        double g[16], gi[16], inv[16], low[40], up[40], r22[22], ric[16];
-#define ROW(r) in[j][r]
-        for (int i = 0; i < 16; i++) g[i] = ROW(gidx[i]);
-        if (!inv4(g, inv))
-            for (int i = 0; i < 16; i++) inv[i] = NAN;
-        for (int a = 0; a < 4; a++)
-            for (int b = 0; b < 4; b++) gi[4 * a + b] = 0.5 * (inv[4 * a + b] + inv[4 * b + a]);
-        for (int i = 0; i < 40; i++) low[i] = 0.5 * (ROW(g1[i]) + ROW(g2[i]) - ROW(g3[i]));
-        for (int a = 0; a < 4; a++)
+        Py_ssize_t nb = n - e0 < CB ? n - e0 : CB;
+        for (int r = 0; r < 150; r++) {
+            memcpy(in[r], rows + (Py_ssize_t)r * n + e0, nb * sizeof(double));
+            for (Py_ssize_t j = nb; j < CB; j++) in[r][j] = in[r][0];   /* padding */
+        }
+        for (int j = 0; j < CB; j++) {           /* pivoted inverse, event by event */
+            double g[16], inv[16];
+            for (int i = 0; i < 16; i++) g[i] = in[gidx[i]][j];
+            if (!inv4(g, inv))
+                for (int i = 0; i < 16; i++) inv[i] = NAN;
+            for (int x = 0; x < 4; x++)
+                for (int y = 0; y < 4; y++)
+                    gi[4 * x + y][j] = 0.5 * (inv[4 * x + y] + inv[4 * y + x]);
+        }
+        for (int i = 0; i < 40; i++) {
+            const double *p1 = in[g1[i]], *p2 = in[g2[i]], *p3 = in[g3[i]];
+            for (int j = 0; j < CB; j++) low[i][j] = 0.5 * (p1[j] + p2[j] - p3[j]);
+        }
+        for (int x = 0; x < 4; x++)
             for (int k = 0; k < 10; k++) {
-                double s = 0.0;
-                for (int d = 0; d < 4; d++) s += gi[4 * a + d] * low[10 * d + k];
-                up[10 * a + k] = s;
+                for (int j = 0; j < CB; j++) acc[j] = 0.0;
+                for (int d = 0; d < 4; d++)
+                    for (int j = 0; j < CB; j++) acc[j] += gi[4 * x + d][j] * low[10 * d + k][j];
+                memcpy(up[10 * x + k], acc, sizeof acc);
             }
         for (int m = 0; m < 21; m++) {
             int k1 = (int)(q1[m] / 10), j1 = (int)(q1[m] % 10);
             int k2 = (int)(q2[m] / 10), j2 = (int)(q2[m] % 10);
-            double p1 = 0.0, p2 = 0.0, a1 = 0.0, a2 = 0.0;
+            double p1[CB], p2[CB], a1[CB], a2[CB];
+            for (int j = 0; j < CB; j++) p1[j] = p2[j] = a1[j] = a2[j] = 0.0;
             for (int x = 0; x < 4; x++) {
-                p1 += up[10 * x + k1] * low[10 * x + j1];
-                p2 += up[10 * x + k2] * low[10 * x + j2];
-                a1 += fabs(up[10 * x + k1]) * fabs(low[10 * x + j1]);
-                a2 += fabs(up[10 * x + k2]) * fabs(low[10 * x + j2]);
+                const double *u1 = up[10 * x + k1], *l1 = low[10 * x + j1];
+                const double *u2 = up[10 * x + k2], *l2 = low[10 * x + j2];
+                for (int j = 0; j < CB; j++) {
+                    p1[j] += u1[j] * l1[j];
+                    p2[j] += u2[j] * l2[j];
+                    a1[j] += fabs(u1[j]) * fabs(l1[j]);
+                    a2[j] += fabs(u2[j]) * fabs(l2[j]);
+                }
             }
-            double t1 = ROW(trows[m]), t2 = ROW(trows[21 + m]);
-            double t3 = ROW(trows[42 + m]), t4 = ROW(trows[63 + m]);
-            double r = 0.5 * ((t1 + t2) - (t3 + t4)) + (p1 - p2);
-            double s = 0.5 * (((fabs(t1) + fabs(t2)) + fabs(t3)) + fabs(t4)) + a1 + a2;
-            s = s + extra[e] / EPS;
-            r22[m] = r;
-            o_r21[m][j] = r;
-            o_s21[m][j] = s;
+            const double *t1 = in[trows[m]], *t2 = in[trows[21 + m]];
+            const double *t3 = in[trows[42 + m]], *t4 = in[trows[63 + m]];
+            for (int j = 0; j < CB; j++) {
+                r22[m][j] = 0.5 * ((t1[j] + t2[j]) - (t3[j] + t4[j])) + (p1[j] - p2[j]);
+                double sc = 0.5 * (((fabs(t1[j]) + fabs(t2[j])) + fabs(t3[j])) + fabs(t4[j]))
+                          + a1[j] + a2[j];
+                o_s21[m][j] = sc + extra[e0 + (j < nb ? j : 0)] / EPS;
+            }
         }
-        r22[21] = 0.0;
-        double ric10[10];
-        for (int p = 0; p < 10; p++) {
-            double s = 0.0;
-            for (int k = 0; k < 16; k++)
-                s += gi[ric_ginv[16 * p + k]] * (r22[ric_rows[16 * p + k]] * ric_sign[16 * p + k]);
-            ric10[p] = s;
+        for (int j = 0; j < CB; j++) r22[21][j] = 0.0;
+        for (int q = 0; q < 10; q++) {
+            for (int j = 0; j < CB; j++) acc[j] = 0.0;
+            for (int k = 0; k < 16; k++) {
+                const double *gg = gi[ric_ginv[16 * q + k]], *rr = r22[ric_rows[16 * q + k]];
+                const double sg = ric_sign[16 * q + k];
+                for (int j = 0; j < CB; j++) acc[j] += gg[j] * (rr[j] * sg);
+            }
+            memcpy(ric[q], acc, sizeof acc);
         }
-        for (int i = 0; i < 16; i++) ric[i] = ric10[pidx[i]];
-        double R = 0.0;
-        for (int i = 0; i < 16; i++) R += gi[i] * ric[i];
-        double bg[36], X[36];
-        for (int A = 0; A < 6; A++)
-            for (int B = 0; B < 6; B++)
-                bg[6 * A + B] = gi[4 * bi[A] + bi[B]] * gi[4 * bj[A] + bj[B]]
-                              - gi[4 * bi[A] + bj[B]] * gi[4 * bj[A] + bi[B]];
-        for (int A = 0; A < 6; A++)
-            for (int C = 0; C < 6; C++) {
-                double s = 0.0;
-                for (int B = 0; B < 6; B++) s += r22[r21idx[6 * A + B]] * bg[6 * B + C];
-                X[6 * A + C] = s;
-            }
-        double K = 0.0, Ks = 0.0;
-        for (int A = 0; A < 6; A++)
-            for (int C = 0; C < 6; C++) {
-                double t = X[6 * A + C] * X[6 * C + A];
-                K += t;
-                Ks += fabs(t);
-            }
+        for (int j = 0; j < CB; j++) R[j] = 0.0;
         for (int i = 0; i < 16; i++) {
-            g_out[16 * e + i] = g[i];
-            gi_out[16 * e + i] = gi[i];
-            ric_out[16 * e + i] = ric[i];
-            ein_out[16 * e + i] = ric[i] - 0.5 * R * g[i];
+            const double *gg = gi[i], *rr = ric[pidx[i]];
+            for (int j = 0; j < CB; j++) R[j] += gg[j] * rr[j];
         }
-        for (int i = 0; i < 40; i++) o_up[i][j] = up[i];
-        rs_out[e] = R;
-        k_out[e] = 4.0 * K;
-        k_out[n + e] = 4.0 * Ks;
-#undef ROW
-    }
-    for (int i = 0; i < 40; i++) memcpy(up_out + (Py_ssize_t)i * n + e0, o_up[i], nb * 8);
-    for (int i = 0; i < 21; i++) {
-        memcpy(r21_out + (Py_ssize_t)i * n + e0, o_r21[i], nb * 8);
-        memcpy(s21_out + (Py_ssize_t)i * n + e0, o_s21[i], nb * 8);
-    }
+        for (int A = 0; A < 6; A++)
+            for (int B = 0; B < 6; B++) {
+                const double *w = gi[4 * bi[A] + bi[B]], *x = gi[4 * bj[A] + bj[B]];
+                const double *y = gi[4 * bi[A] + bj[B]], *z = gi[4 * bj[A] + bi[B]];
+                for (int j = 0; j < CB; j++) bg[6 * A + B][j] = w[j] * x[j] - y[j] * z[j];
+            }
+        for (int A = 0; A < 6; A++)
+            for (int C = 0; C < 6; C++) {
+                for (int j = 0; j < CB; j++) acc[j] = 0.0;
+                for (int B = 0; B < 6; B++) {
+                    const double *rr = r22[r21idx[6 * A + B]], *bb = bg[6 * B + C];
+                    for (int j = 0; j < CB; j++) acc[j] += rr[j] * bb[j];
+                }
+                memcpy(X[6 * A + C], acc, sizeof acc);
+            }
+        for (int j = 0; j < CB; j++) acc[j] = acc2[j] = 0.0;
+        for (int A = 0; A < 6; A++)
+            for (int C = 0; C < 6; C++) {
+                const double *x = X[6 * A + C], *y = X[6 * C + A];
+                for (int j = 0; j < CB; j++) {
+                    double t = x[j] * y[j];
+                    acc[j] += t;
+                    acc2[j] += fabs(t);
+                }
+            }
+        for (Py_ssize_t j = 0; j < nb; j++) {
+            Py_ssize_t e = e0 + j;
+            for (int i = 0; i < 16; i++) {
+                double gv = in[gidx[i]][j], rv = ric[pidx[i]][j];
+                g_out[16 * e + i] = gv;
+                gi_out[16 * e + i] = gi[i][j];
+                ric_out[16 * e + i] = rv;
+                ein_out[16 * e + i] = rv - 0.5 * R[j] * gv;
+            }
+            rs_out[e] = R[j];
+            k_out[e] = 4.0 * acc[j];
+            k_out[n + e] = 4.0 * acc2[j];
+        }
+        for (int i = 0; i < 40; i++) memcpy(up_out + (Py_ssize_t)i * n + e0, up[i], nb * 8);
+        for (int i = 0; i < 21; i++) {
+            memcpy(r21_out + (Py_ssize_t)i * n + e0, r22[i], nb * 8);
+            memcpy(s21_out + (Py_ssize_t)i * n + e0, o_s21[i], nb * 8);
+        }
     }
     Py_END_ALLOW_THREADS
     release(&bufs);
@@ -1018,6 +1046,9 @@ fail:
  * Van Loan, Matrix Computations, 4th ed. ch. 7 — from memory). Backward
  * stable; used only to screen clear cases (below). Returns 0 if it did not
  * converge. */
+/* |Re z| + |Im z|, the modulus LAPACK's complex QR uses in its tests (no hypot). */
+static inline double cabs1(double complex z) { return fabs(creal(z)) + fabs(cimag(z)); }
+
 static int eig4(const double *a, double complex *lam)
 {
     double complex H[4][4];
@@ -1055,8 +1086,8 @@ static int eig4(const double *a, double complex *lam)
         if (iter > 100) return 0;
         int lo = hi;
         while (lo > 0) {
-            double sub = cabs(H[lo][lo - 1]);
-            double dd = cabs(H[lo][lo]) + cabs(H[lo - 1][lo - 1]);
+            double sub = cabs1(H[lo][lo - 1]);
+            double dd = cabs1(H[lo][lo]) + cabs1(H[lo - 1][lo - 1]);
             if (sub <= EPS * dd || sub < 1e-300) { H[lo][lo - 1] = 0.0; break; }
             lo--;
         }
@@ -1065,9 +1096,9 @@ static int eig4(const double *a, double complex *lam)
         double complex p = H[hi - 1][hi - 1], q = H[hi - 1][hi], r = H[hi][hi - 1], t = H[hi][hi];
         double complex tr = 0.5 * (p - t), disc = csqrt(tr * tr + q * r);
         double complex mu1 = 0.5 * (p + t) + disc, mu2 = 0.5 * (p + t) - disc;
-        double complex mu = cabs(mu1 - t) < cabs(mu2 - t) ? mu1 : mu2;
+        double complex mu = cabs1(mu1 - t) < cabs1(mu2 - t) ? mu1 : mu2;
         iter++;
-        if (iter % 11 == 10) mu = t + cabs(H[hi][hi - 1]);     /* exceptional shift */
+        if (iter % 11 == 10) mu = t + cabs1(H[hi][hi - 1]);     /* exceptional shift */
         /* QR step on rows/cols lo..hi of H - mu I by Givens rotations */
         double complex cs[4], sn[4];
         for (int i = lo; i <= hi; i++) H[i][i] -= mu;
@@ -1140,14 +1171,15 @@ static PyObject *py_he_screen(PyObject *self, PyObject *args)
         for (int mask = 3; mask < 16 && !cand; mask++) {
             int m = __builtin_popcount(mask);
             if (m < 2) continue;
-            double complex c = 0.0;
-            for (int i = 0; i < 4; i++) if (mask >> i & 1) c += lam[i];
-            double cr = creal(c) / m, d = 0.0;
+            double cr = 0.0, d2 = 0.0;
+            for (int i = 0; i < 4; i++) if (mask >> i & 1) cr += creal(lam[i]);
+            cr /= m;
             for (int i = 0; i < 4; i++)
                 if (mask >> i & 1) {
-                    double x = cabs(lam[i] - cr);
-                    if (x > d) d = x;
+                    double x = creal(lam[i]) - cr, y = cimag(lam[i]);
+                    if (x * x + y * y > d2) d2 = x * x + y * y;
                 }
+            double d = sqrt(d2);
             d = d > 1e-9 ? d - 1e-9 : 0.0;
             if (d * d <= 2.0 * c_split * delta * 8.0) cand = 1;
             if (m >= 3 && d * d * d <= 2.0 * c_split * delta * 64.0) cand = 1;

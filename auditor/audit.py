@@ -20,7 +20,6 @@ from __future__ import annotations
 
 import os
 import sys
-import threading
 import time
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -336,22 +335,16 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
     checked = _cross_check_events(size)
     acc = _Reduction(grid, metric)
     bounds = [(a, min(a + chunk, size)) for a in range(0, size, chunk)]
-    # The crew worldline does not depend on the grid: it is followed in a forked
-    # process beside the chunk loop (where the platform forks), and meanwhile a
-    # thread imports what the summaries need.
-    background = [_Background(_prefetch)]
-    if crew and crew_cfg.start is not None:
-        background.append(_Forked(_follow, metric, geometry))
-
-    def started():
-        for job in background[::-1]:                    # fork before any thread starts
-            job.start()
-
+    # The crew worldline does not depend on the grid. On one core's chunk loop it
+    # is followed in a forked process beside it (where the platform forks);
+    # with --jobs or Dask the cores are busy already, and it is followed after.
+    worldline = _Forked(_follow, metric, geometry) \
+        if crew and crew_cfg.start is not None else None
+    started = worldline.start if worldline is not None and jobs <= 1 and not dask else None
     for (a, b), part in _chunks(metric, geometry, grid, bounds, checked, jobs, dask,
                                 started):
         acc.add(a, b, part)
         bar.update(b)
-    started()                                           # no-op if started already
 
     maps = acc.maps
     audited = acc.audited
@@ -408,18 +401,10 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
         resolved_as_limit=acc.limit, non_eulerian_points=acc.non_eulerian,
         conditions=conditions, energy=energy, tidal=acc.tidal_summary(),
         he_type_counts=types, maps=maps, station=acc.station_summary())
-    background[0].result()
-    if len(background) > 1:
-        result.crew = background[1].result()            # re-raises what it raised
+    if worldline is not None:
+        result.crew = worldline.result()                # re-raises what it raised
     result.seconds = time.monotonic() - t0
     return result
-
-
-def _prefetch():
-    """Import what the summaries need (SciPy's constants and image labelling)."""
-    import scipy.ndimage  # noqa: F401
-    from . import units
-    units.curvature_s2(1.0, 1.0)
 
 
 def _follow(metric, geometry):
@@ -428,21 +413,19 @@ def _follow(metric, geometry):
 
 
 class _Forked:
-    """A function run once in a forked child process (in this process where
-    the platform cannot fork); :meth:`result` returns its value or re-raises
-    its exception. The value and the exception travel pickled through a pipe."""
+    """A function run once in a forked child process, beside the caller (in
+    the caller, when :meth:`result` is asked, where the platform cannot fork);
+    :meth:`result` returns its value or re-raises its exception. Value and
+    exception travel pickled through a pipe. Started only once the chunk
+    processes (if any) have been forked."""
 
     def __init__(self, fn, *args):
         self._fn, self._args = fn, args
         self._proc = self._recv = None
-        self._inline = None
 
     def start(self):
         import multiprocessing as mp
-        if self._proc is not None or self._inline is not None:
-            return
-        if "fork" not in mp.get_all_start_methods():
-            self._inline = _Background(self._fn, *self._args)
+        if self._proc is not None or "fork" not in mp.get_all_start_methods():
             return
         ctx = mp.get_context("fork")
         self._recv, send = ctx.Pipe(duplex=False)
@@ -452,9 +435,8 @@ class _Forked:
         send.close()
 
     def result(self):
-        self.start()
-        if self._inline is not None:
-            return self._inline.result()
+        if self._proc is None:
+            return self._fn(*self._args)
         try:
             kind, value = self._recv.recv()
         except EOFError:
@@ -476,36 +458,6 @@ def _forked_child(send, fn, args):
         out = ("error", exc)
     send.send(out)
     send.close()
-
-
-class _Background:
-    """A function run once in a daemon thread; :meth:`result` joins it and
-    returns its value or re-raises its exception. Started only once the chunk
-    processes (if any) have been forked, so that no fork happens while it runs."""
-
-    def __init__(self, fn, *args):
-        self._fn, self._args = fn, args
-        self._thread = None
-        self._value = self._error = None
-
-    def _run(self):
-        try:
-            self._value = self._fn(*self._args)
-        except BaseException as exc:   # noqa: BLE001 - handed to the caller in result()
-            self._error = exc
-
-    def start(self):
-        if self._thread is None:
-            self._thread = threading.Thread(target=self._run, daemon=True,
-                                            name="auditor-background")
-            self._thread.start()
-
-    def result(self):
-        self.start()
-        self._thread.join()
-        if self._error is not None:
-            raise self._error
-        return self._value
 
 
 def _cross_check_events(size: int) -> np.ndarray:

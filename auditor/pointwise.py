@@ -22,6 +22,7 @@ from .conditions.stress import MARGIN_FACTOR, TOL_FACTOR, component_tolerance, f
 from .crew.tidal import tidal_from_bivectors
 from .frames import auditing_frame, principal, static
 from .geometry.curvature import _NATIVE_TABLES
+from .geometry.layout import DIDX
 from .geometry.points import PointBatch
 
 __all__ = ["CONDITIONS", "PointFields", "analyse", "margin_tolerances"]
@@ -158,8 +159,8 @@ def station_acceleration(curv) -> np.ndarray:
     gtt = curv.g[:, 0, 0]
     with np.errstate(invalid="ignore", divide="ignore"):
         ut = 1.0 / np.sqrt(-gtt)
-        dut = 0.5 * (-gtt) ** -1.5 * curv.dg[:, 0, 0, 0]
-        a = ut[:, None] ** 2 * curv.christoffel[:, :, 0, 0]
+        dut = 0.5 * (-gtt) ** -1.5 * curv.rows[DIDX[0, 0, 0]]
+        a = ut[:, None] ** 2 * curv.christoffel10[:, 0, :].T     # Γ^μ_tt: pair (t, t) is 0
         a[:, 0] += ut * dut
         mag2 = np.einsum("na,nab,nb->n", a, curv.g, a)
         return np.where(gtt < 0, np.sqrt(np.maximum(mag2, 0.0)), np.nan)

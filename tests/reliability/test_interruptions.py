@@ -256,10 +256,19 @@ def _journal_rows(path: Path) -> list[dict]:
     return rows
 
 
+def _sigint_at_default():
+    """Ctrl-C at a terminal reaches a process whose SIGINT is at its default
+    disposition; a child of a test run started in the background (which the
+    shell starts with SIGINT ignored) would otherwise inherit the ignoring and
+    Python would leave it so."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 def _start_sweep(folder: Path, env):
     (folder / "ds.toml").write_text(DS)
     return subprocess.Popen(auditor_cmd(*SWEEP), cwd=folder, env=env, stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, stdin=subprocess.DEVNULL)
+                            stderr=subprocess.PIPE, text=True, stdin=subprocess.DEVNULL,
+                            preexec_fn=_sigint_at_default)
 
 
 def _wait_for(predicate, proc, seconds, what):
@@ -398,7 +407,8 @@ def test_a_signal_during_report_leaves_no_output(sig, phase, tmp_path):
     proc = subprocess.Popen(auditor_cmd("report", "ds.toml", "-o", "audit.pdf", "--json",
                                         "out.json", "--quiet"),
                             cwd=tmp_path, env=child_env(cache), stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, stdin=subprocess.DEVNULL)
+                            stderr=subprocess.PIPE, text=True, stdin=subprocess.DEVNULL,
+                            preexec_fn=_sigint_at_default)
     if phase == "audit":
         _wait_for(lambda: cache.exists() and any(cache.glob("*.py")), proc, 120,
                   "the kernel to be compiled")
