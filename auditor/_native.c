@@ -1256,12 +1256,191 @@ fail:
     return NULL;
 }
 
+/* ------------------------------------------------------------ connected regions */
+static int uf_find(int *parent, int x)
+{
+    while (parent[x] != x) {
+        parent[x] = parent[parent[x]];
+        x = parent[x];
+    }
+    return x;
+}
+
+/* label(mask (uint8, C order), shape (ndim <= 8, int64), labels out (int32)) -> count
+ * Connected components of the true cells with face connectivity, numbered
+ * 1, 2, ... in order of first appearance in C order: the output of
+ * scipy.ndimage.label with its default structure (the reference the tests
+ * compare with). Two passes with union-find (Rosenfeld & Pfaltz 1966; from
+ * memory). */
+static PyObject *py_label(PyObject *self, PyObject *args)
+{
+    PyObject *oM, *oS, *oL;
+    Buffers bufs = {.n = 0};
+    if (!PyArg_ParseTuple(args, "OOO", &oM, &oS, &oL))
+        return NULL;
+    Py_buffer *sv = &bufs.view[0];
+    if (PyObject_GetBuffer(oS, sv, PyBUF_C_CONTIGUOUS) < 0) return NULL;
+    bufs.n = 1;
+    Py_ssize_t ndim = sv->len / 8;
+    if (ndim < 1 || ndim > 8) { PyErr_SetString(PyExc_ValueError, "label: 1 to 8 axes"); goto fail; }
+    const long long *shape = (const long long *)sv->buf;
+    Py_ssize_t n = 1, stride[8];
+    for (Py_ssize_t k = ndim - 1; k >= 0; k--) {
+        if (shape[k] < 1) { PyErr_SetString(PyExc_ValueError, "label: empty axis"); goto fail; }
+        stride[k] = n;
+        if (n > PY_SSIZE_T_MAX / shape[k]) { PyErr_NoMemory(); goto fail; }
+        n *= shape[k];
+    }
+    if (n > 2147483647LL) { PyErr_SetString(PyExc_ValueError, "label: too many cells"); goto fail; }
+    const unsigned char *mask = (const unsigned char *)get(&bufs, oM, n, 1, 0, "mask");
+    if (!mask) goto fail;
+    int *lab = (int *)get(&bufs, oL, n, 4, 1, "labels");
+    if (!lab) goto fail;
+    int *parent = (int *)PyMem_RawMalloc(((size_t)n / 2 + 2) * sizeof(int));
+    if (!parent) { PyErr_NoMemory(); goto fail; }
+    int next = 1, count = 0;
+    Py_BEGIN_ALLOW_THREADS
+    parent[0] = 0;
+    long long idx[8] = {0};
+    for (Py_ssize_t i = 0; i < n; i++) {
+        if (!mask[i]) {
+            lab[i] = 0;
+        } else {
+            int best = 0, seen[8], ns = 0;
+            for (Py_ssize_t k = 0; k < ndim; k++) {
+                if (idx[k] == 0) continue;
+                int l = lab[i - stride[k]];
+                if (l) {
+                    l = uf_find(parent, l);
+                    seen[ns++] = l;
+                    if (!best || l < best) best = l;
+                }
+            }
+            if (!best) {
+                best = next++;
+                parent[best] = best;
+            } else {
+                for (int q = 0; q < ns; q++) parent[seen[q]] = best;
+            }
+            lab[i] = best;
+        }
+        for (Py_ssize_t k = ndim - 1; k >= 0; k--) {      /* advance the multi-index */
+            if (++idx[k] < shape[k]) break;
+            idx[k] = 0;
+        }
+    }
+    /* final numbers in order of first appearance; parent[] of a root becomes
+     * minus its final number */
+    for (Py_ssize_t i = 0; i < n; i++) {
+        int l = lab[i];
+        if (!l) continue;
+        int r = l;
+        while (parent[r] > 0 && parent[r] != r) r = parent[r];
+        if (parent[r] == r) parent[r] = -(++count);
+        lab[i] = -parent[r];
+    }
+    Py_END_ALLOW_THREADS
+    PyMem_RawFree(parent);
+    release(&bufs);
+    return PyLong_FromLong(count);
+fail:
+    release(&bufs);
+    return NULL;
+}
+
+/* ------------------------------------------------------------ sampled observers */
+/* min over k, v of x00 + 2 v x0.s_k + v^2 s_k^T X s_k (conditions.sampled._ball_samples) */
+static double ball_samples(double x00, const double *xb, const double *X, const double *dirs,
+                           Py_ssize_t K, const double *v, Py_ssize_t V)
+{
+    const double *dx = dirs, *dy = dirs + K, *dz = dirs + 2 * K;
+    double best = INFINITY;
+    for (Py_ssize_t k = 0; k < K; k++) {
+        double s0 = dx[k], s1 = dy[k], s2 = dz[k];
+        double lin = xb[0] * s0 + xb[1] * s1 + xb[2] * s2;
+        double q = (s0 * X[0] + s1 * X[3] + s2 * X[6]) * s0
+                 + (s0 * X[1] + s1 * X[4] + s2 * X[7]) * s1
+                 + (s0 * X[2] + s1 * X[5] + s2 * X[8]) * s2;
+        for (Py_ssize_t j = 0; j < V; j++) {
+            double val = x00 + 2.0 * v[j] * lin + (v[j] * v[j]) * q;
+            if (val < best) best = val;
+        }
+    }
+    return best;
+}
+
+/* sampled(T (N,16) symmetrised, dirs (3,K), speeds (V), ddirs (3,K2), out (N,4)):
+ * the sampled NEC, WEC, SEC and DEC minima of conditions.sampled.sampled_margins. */
+static PyObject *py_sampled(PyObject *self, PyObject *args)
+{
+    PyObject *oT, *oD, *oV, *oD2, *oOut;
+    Py_ssize_t n, K, V, K2;
+    Buffers bufs = {.n = 0};
+    if (!PyArg_ParseTuple(args, "nOnOnOnOO", &n, &oT, &K, &oD, &V, &oV, &K2, &oD2, &oOut))
+        return NULL;
+    if (n < 0 || K < 1 || V < 1 || K2 < 1) {
+        PyErr_SetString(PyExc_ValueError, "sampled: bad sizes");
+        return NULL;
+    }
+    GETD(T, oT, 16 * n, 0);
+    GETD(dirs, oD, 3 * K, 0);
+    GETD(speeds, oV, V, 0);
+    GETD(d2, oD2, 3 * K2, 0);
+    GETD(out, oOut, 4 * n, 1);
+    double *lin2 = (double *)PyMem_RawMalloc((size_t)K2 * 4 * sizeof(double));
+    if (!lin2) { PyErr_NoMemory(); goto fail; }
+    double one = 1.0;
+    Py_BEGIN_ALLOW_THREADS
+    double *ax = lin2 + K2, *ay = lin2 + 2 * K2, *az = lin2 + 3 * K2;
+    const double *ex = d2, *ey = d2 + K2, *ez = d2 + 2 * K2;
+    for (Py_ssize_t e = 0; e < n; e++) {
+        const double *Te = T + 16 * e;
+        double rho = Te[0], b[3] = {Te[1], Te[2], Te[3]}, A[9], X[9];
+        for (int i = 0; i < 3; i++)
+            for (int j = 0; j < 3; j++) A[3 * i + j] = Te[4 * (i + 1) + j + 1];
+        double tr = -Te[0] + Te[5] + Te[10] + Te[15];
+        memcpy(X, A, sizeof A);
+        for (int i = 0; i < 3; i++) X[4 * i] = A[4 * i] - 0.5 * tr;
+        double *o = out + 4 * e;
+        o[0] = ball_samples(rho, b, A, dirs, K, &one, 1);
+        o[1] = ball_samples(rho, b, A, dirs, K, speeds, V);
+        o[2] = ball_samples(rho + 0.5 * tr, b, X, dirs, K, speeds, V);
+        /* DEC over ordered pairs: rho + b.s_k + b.s_l + s_k^T A s_l */
+        for (Py_ssize_t l = 0; l < K2; l++) {
+            lin2[l] = b[0] * ex[l] + b[1] * ey[l] + b[2] * ez[l];
+            ax[l] = A[0] * ex[l] + A[1] * ey[l] + A[2] * ez[l];
+            ay[l] = A[3] * ex[l] + A[4] * ey[l] + A[5] * ez[l];
+            az[l] = A[6] * ex[l] + A[7] * ey[l] + A[8] * ez[l];
+        }
+        double best = INFINITY;
+        for (Py_ssize_t k = 0; k < K2; k++) {
+            double sx = ex[k], sy = ey[k], sz = ez[k], lk = lin2[k];
+            double m = INFINITY;
+            for (Py_ssize_t l = 0; l < K2; l++) {
+                double val = (sx * ax[l] + sy * ay[l] + sz * az[l]) + lk + lin2[l];
+                m = val < m ? val : m;
+            }
+            if (m < best) best = m;
+        }
+        o[3] = rho + best;
+    }
+    Py_END_ALLOW_THREADS
+    PyMem_RawFree(lin2);
+    release(&bufs);
+    Py_RETURN_NONE;
+fail:
+    release(&bufs);
+    return NULL;
+}
+
 /* ------------------------------------------------------------ module */
 static PyMethodDef methods[] = {
     {"curvature", py_curvature, METH_VARARGS, "Curvature assembly, event by event."},
     {"margins", py_margins, METH_VARARGS, "NEC sphere and WEC/SEC balls, event by event."},
     {"dec", py_dec, METH_VARARGS, "DEC search, event by event."},
     {"he_screen", py_he_screen, METH_VARARGS, "Hawking-Ellis type of clear cases, event by event."},
+    {"sampled", py_sampled, METH_VARARGS, "Sampled-observer minima, event by event."},
+    {"label", py_label, METH_VARARGS, "Connected regions (face connectivity)."},
     {"gscreen", py_gscreen, METH_VARARGS, "Finiteness and signature of g, event by event."},
     {"eulerian", py_eulerian, METH_VARARGS, "Eulerian tetrads, event by event."},
     {"frame", py_frame, METH_VARARGS, "Frame stress, round-off scale and tides, event by event."},

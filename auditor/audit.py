@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import __version__, units
+from . import __version__, native, units
 from .conditions.sampled import sampled_margins
 from .crew.limits import CAUTION, tidal_levels
 from .crew.tidal import peak_accel_g
@@ -870,13 +870,18 @@ def _regions(grid, maps, c, per_time):
     Eulerian energy (lists per time sample if ``per_time``), all read block by
     block.
     """
-    from scipy import ndimage     # imported here: not needed before the first chunk
     size = grid.size
     groups = grid.n_times if per_time else 1
     violating = np.empty(size, bool)
     for a, b in _blocks(size):
         violating[a:b] = _violating_block(maps, c, a, b)
-    labels, n = ndimage.label(violating.reshape(grid.shape))
+    if not violating.any():
+        return [], 0
+    if native.available():        # the same labels; importing scipy.ndimage takes ~1 s
+        labels, n = native.label(violating.reshape(grid.shape))
+    else:
+        from scipy import ndimage
+        labels, n = ndimage.label(violating.reshape(grid.shape))
     del violating
     if n == 0:
         return [], 0

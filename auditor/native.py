@@ -128,3 +128,25 @@ def gscreen(rows: np.ndarray, gidx: np.ndarray, rtol: float) -> np.ndarray:
     flags = np.empty(n)
     _lib.gscreen(n, _f(rows, (150, n)), _i(gidx.ravel()), float(rtol), flags)
     return flags.astype(np.int64)
+
+
+def label(mask: np.ndarray):
+    """Connected regions of the true cells of ``mask`` (face connectivity),
+    numbered in order of first appearance: (labels int32 array, count), as
+    :func:`scipy.ndimage.label` with its default structure returns them."""
+    m = np.ascontiguousarray(mask, dtype=np.uint8)
+    labels = np.empty(m.shape, dtype=np.int32)
+    count = _lib.label(m, np.array(m.shape if m.ndim else (1,), dtype=np.int64), labels)
+    return labels, count
+
+
+def sampled(T: np.ndarray, dirs: np.ndarray, speeds: np.ndarray, dec_dirs: np.ndarray):
+    """Sampled NEC, WEC, SEC and DEC minima (N, 4) of symmetrised frame tensors, as
+    :func:`auditor.conditions.sampled.sampled_margins` computes them."""
+    n = T.shape[0]
+    soa = lambda d: np.ascontiguousarray(np.asarray(d, dtype=np.float64).T)
+    speeds = np.ascontiguousarray(speeds, dtype=np.float64)
+    out = np.empty((n, 4))
+    _lib.sampled(n, _f(T, (n, 4, 4)), dirs.shape[0], soa(dirs), speeds.size, speeds,
+                 dec_dirs.shape[0], soa(dec_dirs), out)
+    return out

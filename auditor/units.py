@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["energy_density_J_m3", "energy_J",
+__all__ = ["constants", "use_constants", "energy_density_J_m3", "energy_J",
            "energy_kg", "curvature_s2", "tidal_accel_m_s2", "accel_g", "time_s",
            "length_m", "proper_accel_m_s2"]
 
@@ -29,11 +29,36 @@ __all__ = ["energy_density_J_m3", "energy_J",
 # scipy.constants.g). Read from scipy.constants on first use (module
 # __getattr__): importing it takes a noticeable part of a warm start.
 _SCIPY_NAMES = {"C_M_S": "c", "G_SI": "G", "G_STANDARD_M_S2": "g"}
+# The values once read (or restored from a signed start-up record, which keeps
+# them beside the SciPy version they came from: see auditor/warm.py).
+_VALUES: dict[str, float] = {}
 
 
 def _k(name: str) -> float:
-    from scipy import constants
-    return float(getattr(constants, _SCIPY_NAMES[name]))
+    value = _VALUES.get(name)
+    if value is None:
+        from scipy import constants
+        for key, attr in _SCIPY_NAMES.items():
+            _VALUES[key] = float(getattr(constants, attr))
+        value = _VALUES[name]
+    return value
+
+
+def constants() -> dict[str, float]:
+    """The constants used here, by internal name, as read from scipy.constants."""
+    return {name: _k(name) for name in _SCIPY_NAMES}
+
+
+def use_constants(values) -> bool:
+    """Take the constants from ``values`` (as :func:`constants` returned them in
+    a run with the same SciPy) instead of importing scipy.constants; refused
+    (False) unless it holds exactly those names with finite positive values."""
+    if not isinstance(values, dict) or set(values) != set(_SCIPY_NAMES):
+        return False
+    if not all(isinstance(v, float) and np.isfinite(v) and v > 0 for v in values.values()):
+        return False
+    _VALUES.update(values)
+    return True
 
 
 def __getattr__(name):

@@ -6,8 +6,10 @@ the validated description of the metric (everything but its symbolic forms)
 and the sources of its kernels are stored as a *start-up record* beside the
 kernel cache (:mod:`auditor.geometry.cache`). The record's key is a hash of:
 the file's bytes, the ``--set`` items and ``--points`` as given, the tool's
-own source files, and the versions of the tool, Python, NumPy and SymPy (read
-from the installed package metadata, without importing SymPy).
+own source files, and the versions of the tool, Python, NumPy, SymPy and SciPy
+(read from the installed package metadata, without importing SymPy or SciPy).
+The record also keeps the physical constants read from ``scipy.constants``
+(:func:`auditor.units.constants`), so that a repeat run need not import it.
 
 A repeat run with the same key restores the :class:`~auditor.metric.Metric`
 from the record without importing SymPy and compiles the stored kernels.
@@ -48,13 +50,15 @@ def _versions() -> list[str]:
     for path in sorted(root.rglob("*.py")):
         code.update(str(path.relative_to(root)).encode() + b"\0")
         code.update(path.read_bytes())
-    try:
-        sympy_version = metadata.version("sympy")
-    except metadata.PackageNotFoundError:
-        sympy_version = "?"
+    found = []
+    for name in ("sympy", "scipy"):     # SciPy: the record keeps its physical constants
+        try:
+            found.append(metadata.version(name))
+        except metadata.PackageNotFoundError:
+            found.append("?")
     import numpy as np
     return [_FORMAT, __version__, code.hexdigest(), platform.python_version(), np.__version__,
-            sympy_version]
+            *found]
 
 
 def record_key(data: bytes, set_items, points) -> str:
@@ -243,7 +247,10 @@ def open_metric(path, *, set_items=(), points=None):
             try:
                 metric = _restore(record["metric"], record["kernels"], path, data, set_items,
                                   points)
-                return metric, Geometry(metric)
+                geometry = Geometry(metric)
+                from . import units
+                units.use_constants(record.get("constants"))
+                return metric, geometry
             except Exception:   # noqa: BLE001 - a damaged record: take the full path
                 pass
     from .metric.loader import load_metric, loads_metric, parse_overrides
@@ -254,6 +261,7 @@ def open_metric(path, *, set_items=(), points=None):
         metric = loads_metric(data, path=path, overrides=overrides, points=points)
     geometry = Geometry(metric)
     if key is not None:
+        from . import units
         _store_record(key, {"format": _FORMAT, "metric": _describe(metric),
-                            "kernels": geometry.sources()})
+                            "kernels": geometry.sources(), "constants": units.constants()})
     return metric, geometry

@@ -45,6 +45,8 @@ from functools import lru_cache
 
 import numpy as np
 
+from .. import native
+
 __all__ = [
     "DEFAULT_DIRECTIONS",
     "DEFAULT_RAPIDITIES",
@@ -160,6 +162,10 @@ def sampled_margins(T, n_dirs: int = DEFAULT_DIRECTIONS,
         raise ValueError("`rapidities` must be finite and non-negative.")
     speeds = np.unique(np.concatenate([[0.0], np.tanh(phis), [1.0]]))
 
+    if native.available():        # the same minima, event by event in compiled code
+        ddirs = fibonacci_directions(n_dirs if dec_dirs is None else dec_dirs)
+        o = native.sampled(T, dirs, speeds, ddirs)
+        return SampledMargins(nec=o[:, 0], wec=o[:, 1], sec=o[:, 2], dec=o[:, 3])
     rho, b, A = T[:, 0, 0], T[:, 0, 1:], T[:, 1:, 1:]
     nec = _ball_samples(T, dirs, np.array([1.0]))
     wec = _ball_samples(T, dirs, speeds)

@@ -146,3 +146,29 @@ def test_whole_audit_agrees_with_the_numpy_path(geometry_cache, monkeypatch, nam
         ok = np.isfinite(mb)
         assert np.array_equal(np.isfinite(ma), ok)
         assert np.all(np.abs(ma[ok] - mb[ok]) <= tol[ok]), c
+
+
+@pytest.mark.parametrize("shape", [(7,), (5, 6), (9, 8, 7), (3, 5, 6, 7), (1, 1, 1), (2, 17, 17, 17)])
+def test_region_labels_equal_scipy_ndimage(rng, shape):
+    """Connected regions (face connectivity, numbered in order of first
+    appearance) equal scipy.ndimage.label's, the reference library."""
+    from scipy import ndimage
+    masks = [rng.random(shape) < p for p in (0.05, 0.3, 0.5, 0.7, 0.97)]
+    masks += [np.zeros(shape, bool), np.ones(shape, bool),
+              (np.indices(shape).sum(axis=0) % 2 == 0)]            # checkerboard: most labels
+    for m in masks:
+        a, na = native.label(m)
+        b, nb = ndimage.label(m)
+        assert na == nb
+        assert a.dtype == b.dtype and np.array_equal(a, b)
+
+
+def test_sampled_minima_match_numpy(rng, monkeypatch):
+    from auditor.conditions.sampled import sampled_margins
+    T = _tensors(rng, 300)
+    a = sampled_margins(T, n_dirs=60, dec_dirs=40)
+    monkeypatch.setenv("AUDITOR_NO_NATIVE", "1")
+    b = sampled_margins(T, n_dirs=60, dec_dirs=40)
+    tol = 64 * EPS * np.abs(T).max(axis=(1, 2))
+    for c in ("nec", "wec", "sec", "dec"):
+        assert np.all(np.abs(getattr(a, c) - getattr(b, c)) <= tol), c
