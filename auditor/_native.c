@@ -575,6 +575,30 @@ static double dec_try(const Stress *S, const double *p1, const double *p2, const
     return decval(S, t1, t2);
 }
 
+/* Eigen-decomposition of the symmetric 2x2 [[a, b], [b, c]] by one Jacobi
+ * rotation (the same formulas as jacobi()): eigenvalues ascending in w,
+ * vectors in the columns of v (row-major). */
+static void sym2(double a, double b, double c, double *w, double *v)
+{
+    double cs = 1.0, sn = 0.0, w0 = a, w1 = c;
+    if (b != 0.0) {
+        double theta = (c - a) / (2.0 * b);
+        double t = (theta >= 0 ? 1.0 : -1.0) / (fabs(theta) + sqrt(theta * theta + 1.0));
+        if (!isfinite(theta)) t = 0.5 / theta;
+        cs = 1.0 / sqrt(t * t + 1.0);
+        sn = t * cs;
+        w0 = a - t * b;
+        w1 = c + t * b;
+    }
+    if (w0 <= w1) {
+        w[0] = w0; w[1] = w1;
+        v[0] = cs; v[1] = sn; v[2] = -sn; v[3] = cs;
+    } else {
+        w[0] = w1; w[1] = w0;
+        v[0] = sn; v[1] = cs; v[2] = cs; v[3] = -sn;
+    }
+}
+
 /* Eigen-decomposition of H = [[p I, C], [C^T, q I]] (4x4, C the 2x2 block
  * H[0:2, 2:4]): with C^T C = V diag(sigma^2) V^T and u_k = C v_k / sigma_k,
  * the planes span{(u_k, 0), (0, v_k)} are invariant and H acts on each as
@@ -587,7 +611,7 @@ static void hessian_eigen(double p, double q, const double *H, double *w, double
     M[0] = C[0] * C[0] + C[2] * C[2];
     M[1] = M[2] = C[0] * C[1] + C[2] * C[3];
     M[3] = C[1] * C[1] + C[3] * C[3];
-    jacobi(M, 2, sg2, V);
+    sym2(M[0], M[1], M[3], sg2, V);
     for (int k = 1; k >= 0; k--) {                /* larger singular value first */
         double u0 = C[0] * V[k] + C[1] * V[2 + k], u1 = C[2] * V[k] + C[3] * V[2 + k];
         double nr = sqrt(u0 * u0 + u1 * u1);
@@ -607,8 +631,8 @@ static void hessian_eigen(double p, double q, const double *H, double *w, double
     (void)sg2;
     double ww[4], VV[16];
     for (int k = 0; k < 2; k++) {
-        double B[4] = {p, sig[k], sig[k], q}, mu[2], Z[4];
-        jacobi(B, 2, mu, Z);
+        double mu[2], Z[4];
+        sym2(p, sig[k], q, mu, Z);
         for (int j = 0; j < 2; j++) {
             int col = 2 * k + j;
             ww[col] = mu[j];
@@ -951,83 +975,107 @@ static PyObject *py_frame(PyObject *self, PyObject *args)
     GETD(vec, o[11], 9 * n, 1);
     for (int i = 0; i < 6; i++) if (bi[i] < 0 || bi[i] >= 4 || bj[i] < 0 || bj[i] >= 4) goto bad;
     for (int i = 0; i < 36; i++) if (r21idx[i] < 0 || r21idx[i] >= 21) goto bad;
-    const double inv8pi = 1.0 / (8.0 * M_PI);
     Py_BEGIN_ALLOW_THREADS
-    for (Py_ssize_t e = 0; e < n; e++) {
-        const double *E = Ev + 16 * e, *G = Gv + 16 * e;
-        double T[16], R6[36], S6[36], W[36], Wa[36];
+    /* Blocks of FB events, structure-of-arrays, events innermost (as in
+     * py_curvature); the eigen-decomposition of the tidal tensor per event. */
+    enum { FB = 16 };
+    double E[16][FB], G[16][FB], R6[36][FB], S6[36][FB], W[36][FB], Wa[36][FB];
+    double EG[16][FB], Y[36][FB], acc[FB], mx[FB], Z[18][FB], X[9][FB];
+    for (Py_ssize_t e0 = 0; e0 < n; e0 += FB) {
+        Py_ssize_t nb = n - e0 < FB ? n - e0 : FB;
+        for (int i = 0; i < 16; i++)
+            for (int j = 0; j < FB; j++) {
+                Py_ssize_t e = e0 + (j < nb ? j : 0);
+                E[i][j] = Ev[16 * e + i];
+                G[i][j] = Gv[16 * e + i];
+            }
+        for (int A = 0; A < 36; A++)
+            for (int j = 0; j < FB; j++) {
+                Py_ssize_t e = e0 + (j < nb ? j : 0);
+                R6[A][j] = r21[r21idx[A] * n + e];
+                S6[A][j] = s21[r21idx[A] * n + e];
+            }
         /* T_ab = sum_mv E[a,m] E[b,v] G[m,v] / 8 pi, symmetrised */
-        double EG[16];
-        for (int b = 0; b < 4; b++)
+        for (int b_ = 0; b_ < 4; b_++)
             for (int m = 0; m < 4; m++) {
-                double x = 0.0;
-                for (int v = 0; v < 4; v++) x += E[4 * b + v] * G[4 * m + v];
-                EG[4 * b + m] = x;                           /* (E G^T)[b, m] */
+                for (int j = 0; j < FB; j++) acc[j] = 0.0;
+                for (int v = 0; v < 4; v++)
+                    for (int j = 0; j < FB; j++) acc[j] += E[4 * b_ + v][j] * G[4 * m + v][j];
+                memcpy(EG[4 * b_ + m], acc, sizeof acc);
             }
-        for (int a = 0; a < 4; a++)
-            for (int b = 0; b < 4; b++) {
-                double x = 0.0;
-                for (int m = 0; m < 4; m++) x += E[4 * a + m] * EG[4 * b + m];
-                T[4 * a + b] = x / (8.0 * M_PI);
+        double Tb[16][FB];
+        for (int a_ = 0; a_ < 4; a_++)
+            for (int b_ = 0; b_ < 4; b_++) {
+                for (int j = 0; j < FB; j++) acc[j] = 0.0;
+                for (int m = 0; m < 4; m++)
+                    for (int j = 0; j < FB; j++) acc[j] += E[4 * a_ + m][j] * EG[4 * b_ + m][j];
+                for (int j = 0; j < FB; j++) Tb[4 * a_ + b_][j] = acc[j] / (8.0 * M_PI);
             }
-        (void)inv8pi;
-        for (int a = 0; a < 4; a++)
-            for (int b = 0; b < 4; b++)
-                Tout[16 * e + 4 * a + b] = 0.5 * (T[4 * a + b] + T[4 * b + a]);
-        for (int A = 0; A < 36; A++) {
-            R6[A] = r21[r21idx[A] * n + e];
-            S6[A] = s21[r21idx[A] * n + e];
-        }
+        for (Py_ssize_t j = 0; j < nb; j++)
+            for (int a_ = 0; a_ < 4; a_++)
+                for (int b_ = 0; b_ < 4; b_++)
+                    Tout[16 * (e0 + j) + 4 * a_ + b_] = 0.5 * (Tb[4 * a_ + b_][j] + Tb[4 * b_ + a_][j]);
         /* bivector weights: W[Ahat, A] = e_i^al e_j^be - e_i^be e_j^al */
         for (int P = 0; P < 6; P++)
             for (int A = 0; A < 6; A++) {
-                double x = E[4 * bi[P] + bi[A]] * E[4 * bj[P] + bj[A]];
-                double y = E[4 * bi[P] + bj[A]] * E[4 * bj[P] + bi[A]];
-                W[6 * P + A] = x - y;
-                Wa[6 * P + A] = fabs(E[4 * bi[P] + bi[A]]) * fabs(E[4 * bj[P] + bj[A]])
-                              + fabs(E[4 * bi[P] + bj[A]]) * fabs(E[4 * bj[P] + bi[A]]);
+                const double *p1 = E[4 * bi[P] + bi[A]], *p2 = E[4 * bj[P] + bj[A]];
+                const double *p3 = E[4 * bi[P] + bj[A]], *p4 = E[4 * bj[P] + bi[A]];
+                for (int j = 0; j < FB; j++) {
+                    W[6 * P + A][j] = p1[j] * p2[j] - p3[j] * p4[j];
+                    Wa[6 * P + A][j] = fabs(p1[j]) * fabs(p2[j]) + fabs(p3[j]) * fabs(p4[j]);
+                }
             }
-        double Y[36], mx = 0.0;
         for (int A = 0; A < 6; A++)
             for (int C = 0; C < 6; C++) {
-                double x = 0.0;
-                for (int B = 0; B < 6; B++) x += Wa[6 * A + B] * S6[6 * B + C];
-                Y[6 * A + C] = x;
+                for (int j = 0; j < FB; j++) acc[j] = 0.0;
+                for (int B = 0; B < 6; B++)
+                    for (int j = 0; j < FB; j++) acc[j] += Wa[6 * A + B][j] * S6[6 * B + C][j];
+                memcpy(Y[6 * A + C], acc, sizeof acc);
             }
+        for (int j = 0; j < FB; j++) mx[j] = 0.0;
         for (int A = 0; A < 6; A++)
             for (int D = 0; D < 6; D++) {
-                double x = 0.0;
-                for (int C = 0; C < 6; C++) x += Y[6 * A + C] * Wa[6 * D + C];
-                if (x > mx || isnan(x)) mx = x;
+                for (int j = 0; j < FB; j++) acc[j] = 0.0;
+                for (int C = 0; C < 6; C++)
+                    for (int j = 0; j < FB; j++) acc[j] += Y[6 * A + C][j] * Wa[6 * D + C][j];
+                for (int j = 0; j < FB; j++)
+                    if (acc[j] > mx[j] || isnan(acc[j])) mx[j] = acc[j];
             }
-        fs[e] = mx;
+        for (Py_ssize_t j = 0; j < nb; j++) fs[e0 + j] = mx[j];
         if (want_tidal) {
-            double Z[18], X[9], Xs[9], lam[3], V[9];
             for (int i = 0; i < 3; i++)
                 for (int B = 0; B < 6; B++) {
-                    double x = 0.0;
-                    for (int A = 0; A < 6; A++) x += W[6 * i + A] * R6[6 * A + B];
-                    Z[6 * i + B] = x;
+                    for (int j = 0; j < FB; j++) acc[j] = 0.0;
+                    for (int A = 0; A < 6; A++)
+                        for (int j = 0; j < FB; j++) acc[j] += W[6 * i + A][j] * R6[6 * A + B][j];
+                    memcpy(Z[6 * i + B], acc, sizeof acc);
                 }
             for (int i = 0; i < 3; i++)
-                for (int j = 0; j < 3; j++) {
-                    double x = 0.0;
-                    for (int B = 0; B < 6; B++) x += Z[6 * i + B] * W[6 * j + B];
-                    X[3 * i + j] = x;
+                for (int k = 0; k < 3; k++) {
+                    for (int j = 0; j < FB; j++) acc[j] = 0.0;
+                    for (int B = 0; B < 6; B++)
+                        for (int j = 0; j < FB; j++) acc[j] += Z[6 * i + B][j] * W[6 * k + B][j];
+                    memcpy(X[3 * i + k], acc, sizeof acc);
                 }
-            for (int i = 0; i < 3; i++)
-                for (int j = 0; j < 3; j++) Xs[3 * i + j] = 0.5 * (X[3 * i + j] + X[3 * j + i]);
-            memcpy(tid + 9 * e, Xs, sizeof Xs);
-            int fin = 1;
-            for (int i = 0; i < 9; i++) if (!isfinite(Xs[i])) fin = 0;
-            if (fin) {
-                jacobi(Xs, 3, lam, V);
-            } else {
-                for (int i = 0; i < 3; i++) lam[i] = NAN;
-                for (int i = 0; i < 9; i++) V[i] = NAN;
+            for (Py_ssize_t j = 0; j < nb; j++) {
+                Py_ssize_t e = e0 + j;
+                double Xs[9], lam[3], V[9];
+                int fin = 1;
+                for (int i = 0; i < 3; i++)
+                    for (int k = 0; k < 3; k++) {
+                        Xs[3 * i + k] = 0.5 * (X[3 * i + k][j] + X[3 * k + i][j]);
+                        if (!isfinite(Xs[3 * i + k])) fin = 0;
+                    }
+                memcpy(tid + 9 * e, Xs, sizeof Xs);
+                if (fin) {
+                    jacobi(Xs, 3, lam, V);
+                } else {
+                    for (int i = 0; i < 3; i++) lam[i] = NAN;
+                    for (int i = 0; i < 9; i++) V[i] = NAN;
+                }
+                memcpy(eig + 3 * e, lam, sizeof lam);
+                memcpy(vec + 9 * e, V, sizeof V);
             }
-            memcpy(eig + 3 * e, lam, sizeof lam);
-            memcpy(vec + 9 * e, V, sizeof V);
         }
     }
     Py_END_ALLOW_THREADS
