@@ -1144,6 +1144,13 @@ static int eig4(const double *a, double complex *lam)
         double complex p = H[hi - 1][hi - 1], q = H[hi - 1][hi], r = H[hi][hi - 1], t = H[hi][hi];
         double complex tr = 0.5 * (p - t), disc = csqrt(tr * tr + q * r);
         double complex mu1 = 0.5 * (p + t) + disc, mu2 = 0.5 * (p + t) - disc;
+        if (lo == hi - 1) {           /* an isolated 2x2 block: its two eigenvalues */
+            lam[hi - 1] = mu1;
+            lam[hi] = mu2;
+            hi -= 2;
+            iter = 0;
+            continue;
+        }
         double complex mu = cabs1(mu1 - t) < cabs1(mu2 - t) ? mu1 : mu2;
         iter++;
         if (iter % 11 == 10) mu = t + cabs1(H[hi][hi - 1]);     /* exceptional shift */
@@ -1174,7 +1181,7 @@ static int eig4(const double *a, double complex *lam)
         }
         for (int i = lo; i <= hi; i++) H[i][i] += mu;
     }
-    lam[0] = H[0][0];
+    if (hi == 0) lam[0] = H[0][0];
     return 1;
 }
 
