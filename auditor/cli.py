@@ -257,9 +257,34 @@ def _report_start_up() -> None:
                      f"process started; SymPy {sympy}\n")
 
 
+def _keep_working_memory() -> None:
+    """Keep freed working memory in the process (glibc only).
+
+    An audit allocates and frees the same few-megabyte working arrays chunk
+    after chunk. By default glibc hands such memory back to the system as soon
+    as enough is free and takes it back at the next chunk, and every page taken
+    back is a page fault that the kernel zeroes: a fifth to a third of the
+    audit's time. Raising the trim threshold to 256 MiB (and fixing the mmap
+    threshold at 32 MiB, glibc's own upper value, so that large maps keep their
+    own mappings) keeps that memory for reuse; the peak is unchanged.
+    Elsewhere this does nothing."""
+    if not sys.platform.startswith("linux"):
+        return
+    try:
+        import ctypes
+        libc = ctypes.CDLL("libc.so.6")
+        mallopt = libc.mallopt
+    except (OSError, AttributeError):
+        return
+    M_TRIM_THRESHOLD, M_MMAP_THRESHOLD = -1, -3
+    mallopt(M_MMAP_THRESHOLD, 32 << 20)
+    mallopt(M_TRIM_THRESHOLD, 256 << 20)
+
+
 def main(argv=None) -> int:
     parser = build_parser()
     _terminate_cleanly()
+    _keep_working_memory()
     argv = sys.argv[1:] if argv is None else list(argv)
     args = parser.parse_args(argv)
     args.argv = argv
