@@ -335,14 +335,15 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
     checked = _cross_check_events(size)
     acc = _Reduction(grid, metric)
     bounds = [(a, min(a + chunk, size)) for a in range(0, size, chunk)]
-    # The crew worldline does not depend on the grid. On one core's chunk loop it
-    # is followed in a forked process beside it (where the platform forks);
-    # with --jobs or Dask the cores are busy already, and it is followed after.
+    # The crew worldline does not depend on the grid: it is followed in a forked
+    # process beside the chunk loop (where the platform forks; forked before
+    # any worker process, and not beside a Dask cluster, which it would only
+    # slow down on this machine).
     worldline = _Forked(_follow, metric, geometry) \
         if crew and crew_cfg.start is not None else None
-    started = worldline.start if worldline is not None and jobs <= 1 and not dask else None
-    for (a, b), part in _chunks(metric, geometry, grid, bounds, checked, jobs, dask,
-                                started):
+    if worldline is not None and not dask:
+        worldline.start()
+    for (a, b), part in _chunks(metric, geometry, grid, bounds, checked, jobs, dask):
         acc.add(a, b, part)
         bar.update(b)
 
@@ -414,10 +415,9 @@ def _follow(metric, geometry):
 
 class _Forked:
     """A function run once in a forked child process, beside the caller (in
-    the caller, when :meth:`result` is asked, where the platform cannot fork);
-    :meth:`result` returns its value or re-raises its exception. Value and
-    exception travel pickled through a pipe. Started only once the chunk
-    processes (if any) have been forked."""
+    the caller, when :meth:`result` is asked, if it was not started or the
+    platform cannot fork); :meth:`result` returns its value or re-raises its
+    exception. Value and exception travel pickled through a pipe."""
 
     def __init__(self, fn, *args):
         self._fn, self._args = fn, args
@@ -828,18 +828,14 @@ def dask_client(address: str):
         raise UsageError(f"--dask: cannot reach a Dask scheduler at {address} ({exc})") from exc
 
 
-def _chunks(metric, geometry, grid, bounds, checked, jobs, dask, started=None):
-    """Yield ((start, stop), fields) for every chunk, in order, however they are run.
-
-    ``started`` is called once the chunks are under way (after any fork)."""
-    started = started or (lambda: None)
+def _chunks(metric, geometry, grid, bounds, checked, jobs, dask):
+    """Yield ((start, stop), fields) for every chunk, in order, however they are run."""
     if dask:
         client = dask_client(dask)
         try:
             futs = [client.submit(_chunk_on_dask, metric.path, metric.sha256,
                                   dict(metric.parameters), grid, a, b,
                                   _check_mask(checked, a, b), pure=False) for a, b in bounds]
-            started()
             for (a, b), fut in zip(bounds, futs):
                 yield (a, b), fut.result()
         finally:
@@ -852,11 +848,9 @@ def _chunks(metric, geometry, grid, bounds, checked, jobs, dask, started=None):
         with ProcessPoolExecutor(max_workers=jobs, mp_context=mp.get_context("fork")) as pool:
             futs = [pool.submit(_chunk_in_worker, a, b, _check_mask(checked, a, b))
                     for a, b in bounds]
-            started()
             for (a, b), fut in zip(bounds, futs):
                 yield (a, b), fut.result()
         return
-    started()
     for a, b in bounds:
         yield (a, b), chunk_fields(metric, geometry, grid, a, b, _check_mask(checked, a, b))
 
