@@ -828,28 +828,60 @@ static PyObject *py_dec(PyObject *self, PyObject *args)
         k += 2;
         for (int j = 0; j < k; j++) partner(&S, s1[j], s1[j], s2[j]);
         memcpy(s2[nec_row], sn, 3 * sizeof(double));
-        /* (iii) alternation, checked every 5 steps */
-        for (int j = 0; j < k; j++) {
-            int done = 0;
-            while (done < alternations) {
-                double q1[3], q2[3];
+        /* (iii) alternation, checked every 5 steps. All starts advance in
+         * lockstep, components stored apart (independent chains the processor
+         * overlaps, and that vectorise); a start that has stopped keeps its
+         * vectors. Each start goes through exactly the steps it would alone. */
+        {
+            double X1[3][MAX_STARTS], X2[3][MAX_STARTS], P1[3][MAX_STARTS], P2[3][MAX_STARTS];
+            int live[MAX_STARTS];
+            for (int j = 0; j < k; j++) {
+                live[j] = 1;
+                for (int i = 0; i < 3; i++) { X1[i][j] = s1[j][i]; X2[i][j] = s2[j][i]; }
+            }
+            const double *A = S.A, *bv = S.b;
+            int done = 0, any = 1;
+            while (done < alternations && any) {
                 int steps = alternations - done < 5 ? alternations - done : 5;
                 for (int st = 0; st < steps; st++) {
-                    memcpy(q1, s1[j], sizeof q1);
-                    memcpy(q2, s2[j], sizeof q2);
-                    partner(&S, q2, q1, s1[j]);
-                    partner(&S, s1[j], q2, s2[j]);
+                    for (int i = 0; i < 3; i++)
+                        for (int j = 0; j < k; j++) { P1[i][j] = X1[i][j]; P2[i][j] = X2[i][j]; }
+                    for (int half = 0; half < 2; half++) {
+                        /* half 0: s1 <- partner(s2, prev s1); half 1: s2 <- partner(s1, prev s2) */
+                        double (*src)[MAX_STARTS] = half ? X1 : X2;
+                        double (*dst)[MAX_STARTS] = half ? X2 : X1;
+                        double (*prev)[MAX_STARTS] = half ? P2 : P1;
+                        for (int j = 0; j < k; j++) {
+                            double r0 = A[0] * src[0][j] + A[1] * src[1][j] + A[2] * src[2][j] + bv[0];
+                            double r1 = A[3] * src[0][j] + A[4] * src[1][j] + A[5] * src[2][j] + bv[1];
+                            double r2 = A[6] * src[0][j] + A[7] * src[1][j] + A[8] * src[2][j] + bv[2];
+                            double nr = sqrt(r0 * r0 + r1 * r1 + r2 * r2);
+                            int ok = nr > 0 && live[j];
+                            double d = nr > 0 ? nr : 1.0;
+                            dst[0][j] = ok ? -(r0 / d) : (live[j] ? prev[0][j] : dst[0][j]);
+                            dst[1][j] = ok ? -(r1 / d) : (live[j] ? prev[1][j] : dst[1][j]);
+                            dst[2][j] = ok ? -(r2 / d) : (live[j] ? prev[2][j] : dst[2][j]);
+                        }
+                    }
                 }
                 done += 5;
-                double mv = 0.0;
-                for (int i = 0; i < 3; i++) {
-                    double d1 = fabs(s1[j][i] - q1[i]), d2 = fabs(s2[j][i] - q2[i]);
-                    if (d1 > mv) mv = d1;
-                    if (d2 > mv) mv = d2;
+                any = 0;
+                for (int j = 0; j < k; j++) {
+                    if (!live[j]) continue;
+                    double mv = 0.0;
+                    for (int i = 0; i < 3; i++) {
+                        double d1 = fabs(X1[i][j] - P1[i][j]), d2 = fabs(X2[i][j] - P2[i][j]);
+                        if (d1 > mv) mv = d1;
+                        if (d2 > mv) mv = d2;
+                    }
+                    live[j] = mv > 1e-10;
+                    any |= live[j];
                 }
-                if (!(mv > 1e-10)) break;
             }
-            F[j] = decval(&S, s1[j], s2[j]);
+            for (int j = 0; j < k; j++) {
+                for (int i = 0; i < 3; i++) { s1[j][i] = X1[i][j]; s2[j][i] = X2[i][j]; }
+                F[j] = decval(&S, s1[j], s2[j]);
+            }
         }
         /* (iv) Newton on the `polished` best starts (stable order) */
         int order[MAX_STARTS];
