@@ -106,29 +106,36 @@ def main():
     env.pop("PYTHONDONTWRITEBYTECODE", None)
     print(f"{'metric':8} {'events':>9} {'check ev/s':>11} {'baseline ev/s':>14} "
           f"{'ratio':>6} {'check s':>8} {'5^3 s':>6} {'per-event ratio':>16} {'peak MiB':>9}")
-    # Every check first, while this process is small (a child's peak memory must
-    # not include pages of this one); then the baselines, in this process. The
-    # first run of each size writes the caches (kernels, start-up record,
-    # bytecode) and is not counted.
-    checks, small = {}, {}
+    # The first runs write the caches (kernels, start-up record, bytecode) and
+    # are not counted. Then rounds of: every check, then every baseline, so
+    # that both see the machine in the same state (its speed drifts); each
+    # figure is the fastest of its rounds. Peak memory comes from the first
+    # counted check, made while this process is still small.
+    metrics = {name: load_metric(METRICS[name], points=args.points) for name in names}
+    events = {name: Grid.from_region(m).events(0, Grid.from_region(m).size)
+              for name, m in metrics.items()}
+    best = {name: {"check": np.inf, "small": np.inf, "base": np.inf, "rss": None}
+            for name in names}
     for name in names:
-        for points, into in ((5, small), (args.points, checks)):
-            run_check(METRICS[name], points, args.jobs, env)
-            runs = [run_check(METRICS[name], points, args.jobs, env)
-                    for _ in range(max(1, args.repeat))]
-            into[name] = min(runs)
+        run_check(METRICS[name], 5, args.jobs, env)
+        run_check(METRICS[name], args.points, args.jobs, env)
+    for _ in range(max(1, args.repeat)):
+        for name in names:
+            b = best[name]
+            b["small"] = min(b["small"], run_check(METRICS[name], 5, args.jobs, env)[0])
+            wall, rss = run_check(METRICS[name], args.points, args.jobs, env)
+            b["check"] = min(b["check"], wall)
+            b["rss"] = rss if b["rss"] is None else b["rss"]
+        for name in names:
+            with np.errstate(all="ignore"):
+                t_base = baseline(metrics[name], events[name])[0]
+            best[name]["base"] = min(best[name]["base"], t_base)
     for name in names:
-        metric = load_metric(METRICS[name], points=args.points)
-        grid = Grid.from_region(metric)
-        wall, rss = checks[name]
-        events = grid.events(0, grid.size)
-        with np.errstate(all="ignore"):
-            t_base = min(baseline(metric, events)[0] for _ in range(max(1, args.repeat)))
-        ours, base = grid.size / wall, grid.size / t_base
-        fixed = small[name][0]
-        per_event = (grid.size - 125) / max(wall - fixed, 1e-9) / base
-        print(f"{name:8} {grid.size:9d} {ours:11.0f} {base:14.0f} {ours / base:6.2f} "
-              f"{wall:8.2f} {fixed:6.2f} {per_event:16.2f} {rss:9.0f}")
+        b, size = best[name], len(events[name])
+        ours, base = size / b["check"], size / b["base"]
+        per_event = (size - 125) / max(b["check"] - b["small"], 1e-9) / base
+        print(f"{name:8} {size:9d} {ours:11.0f} {base:14.0f} {ours / base:6.2f} "
+              f"{b['check']:8.2f} {b['small']:6.2f} {per_event:16.2f} {b['rss']:9.0f}")
     print("check: whole process, warm caches, every output, fastest of the runs; baseline: "
           "curvature and Eulerian energy density only, evaluation time without compilation, "
           "fastest of the runs. 5^3 s: the same check on 125 events (start-up and the work "
