@@ -72,9 +72,18 @@ class PointFields:
 
 
 def _to_coordinates(E: np.ndarray, spatial: np.ndarray) -> np.ndarray:
-    """Coordinate components of n + v (v spatial, frame components) (M,4)."""
-    frame = np.concatenate([np.ones((len(spatial), 1)), spatial], axis=1)
-    return np.einsum("na,nam->nm", frame, E)
+    """Coordinate components of n + v (v spatial, frame components): (M,4) for
+    v (M,3), (M,K,4) for K vectors per event (M,K,3)."""
+    if spatial.ndim == 2:
+        return _to_coordinates(E, spatial[:, None, :])[:, 0]
+    return E[:, None, 0, :] + np.matmul(spatial, E[:, 1:, :])
+
+
+def _det3(m: np.ndarray) -> np.ndarray:
+    """Determinants of symmetric 3×3 matrices (N,3,3), by cofactors along the first row."""
+    a, b, c = m[:, 0, 0], m[:, 0, 1], m[:, 0, 2]
+    d, e, f = m[:, 1, 1], m[:, 1, 2], m[:, 2, 2]
+    return a * (d * f - e * e) - b * (b * f - e * c) + c * (b * e - d * c)
 
 
 def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | None:
@@ -106,18 +115,19 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
     # their tolerance (margins.margins_with_observers): the DEC search is skipped.
     settled = np.abs(T).max(axis=(1, 2)) <= t_tol
     r = margins_with_observers(T, settled=settled)
-    for c in ("NEC", "WEC", "SEC"):
-        out.margins[c], out.observers[c] = r[c][0], _to_coordinates(E, r[c][1])
     m, s1, s2 = r["DEC"]
+    # the five worst observers, frame to coordinates in one product
+    k = _to_coordinates(E, np.stack([r["NEC"][1], r["WEC"][1], r["SEC"][1], s1, s2], axis=1))
+    for i, c in enumerate(("NEC", "WEC", "SEC")):
+        out.margins[c], out.observers[c] = r[c][0], k[:, i]
     out.margins["DEC"] = m
-    k1, k2 = _to_coordinates(E, s1), _to_coordinates(E, s2)
-    out.observers["DEC"] = k1
-    out.dec_pair = np.stack([k1, k2], axis=1)
+    out.observers["DEC"] = k[:, 3]
+    out.dec_pair = k[:, 3:5].copy()
     out.he_type = classify(T, t_tol)
 
     out.rho = np.where(eul, T[:, 0, 0], np.nan)
     with np.errstate(invalid="ignore"):
-        det = np.linalg.det(curv.g[:, 1:, 1:])
+        det = _det3(curv.g[:, 1:, 1:])
         out.sqrt_gamma = np.where(eul & (det > 0), np.sqrt(np.abs(det)), np.nan)
 
     if crew_frame == "static":
