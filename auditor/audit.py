@@ -452,12 +452,23 @@ class _Forked:
 
 
 def _forked_child(send, fn, args):
+    import signal
+    # The parent answers Ctrl-C (the terminal sends it to both) and ends this
+    # process with SIGTERM if it stops first: neither may print a traceback here.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
     try:
         out = ("ok", fn(*args))
     except Exception as exc:   # noqa: BLE001 - handed to the parent
         out = ("error", exc)
-    send.send(out)
-    send.close()
+    try:
+        try:
+            send.send(out)
+        except Exception as exc:   # noqa: BLE001 - a value that does not pickle
+            send.send(("error", RuntimeError(f"worldline: {type(exc).__name__}: {exc}")))
+        send.close()
+    except OSError:                # the parent has gone
+        pass
 
 
 def _cross_check_events(size: int) -> np.ndarray:

@@ -1,12 +1,18 @@
 """The optional compiled accelerator, ``auditor._native``.
 
-The C loops in ``auditor/_native.c`` compute, event by event, what the NumPy
-routines of :mod:`auditor.geometry.curvature` and
-:mod:`auditor.conditions.margins` compute for whole batches; those routines
-stay the reference, and the fallback where the extension was not built (no C
-compiler at install time). Setting ``AUDITOR_NO_NATIVE=1`` forces the NumPy
-code. Results agree to round-off (the tests compare both), and each event is
-computed on its own, so nothing depends on how events are batched.
+The C loops in ``auditor/_native.c`` compute, event by event, what NumPy (or
+SciPy) routines compute for whole batches: curvature assembly
+(:mod:`auditor.geometry.curvature`), the finiteness and signature check of g
+(:mod:`auditor.geometry.points`), Eulerian tetrads (:mod:`auditor.frames`),
+frame stress, its round-off and the tidal tensor (:mod:`auditor.pointwise`),
+the margins and the DEC search (:mod:`auditor.conditions.margins`), a screen
+of the clear Hawking–Ellis cases (:mod:`auditor.conditions.hawking_ellis`),
+the sampled cross-check (:mod:`auditor.conditions.sampled`) and region labels
+(:func:`scipy.ndimage.label`). Those routines stay the reference, and the
+fallback where the extension was not built (no C compiler at install time).
+Setting ``AUDITOR_NO_NATIVE=1`` forces them. Results agree to round-off (the
+tests compare both), and each event is computed on its own, so nothing
+depends on how events are batched.
 """
 
 from __future__ import annotations
@@ -15,7 +21,12 @@ import os
 
 import numpy as np
 
-__all__ = ["available", "curvature", "margins", "dec"]
+__all__ = ["available", "curvature", "dec", "eulerian", "frame", "gscreen", "he_screen",
+           "label", "margins", "sampled", "MAX_DEC_STARTS"]
+
+#: Most scan directions kept per event by the compiled DEC search (its fixed
+#: table holds 64 starts, seven of them special).
+MAX_DEC_STARTS = 57
 
 try:  # pragma: no branch - depends on the build
     from . import _native as _lib

@@ -561,7 +561,7 @@ def dec_margin(T, *, n_dirs: int = DEC_DIRECTIONS, n_starts: int = DEC_STARTS):
     T = _check_T(T)
     if int(n_dirs) < 1 or int(n_starts) < 1:
         raise ValueError("`n_dirs` and `n_starts` must be positive integers.")
-    if native.available():
+    if native.available() and int(n_starts) <= native.MAX_DEC_STARTS:
         return _margins_native(T, None, int(n_dirs), int(n_starts))["DEC"]
     rho, b, A, scale = _scaled(T)
     val, s1, s2 = _dec_search(rho, b, A, _sphere_min(rho, b, A), int(n_dirs), int(n_starts))
@@ -659,7 +659,7 @@ def margins_with_observers(T, *, settled=None, **dec_options):
     n_starts = int(dec_options.get("n_starts", DEC_STARTS))
     if n_dirs < 1 or n_starts < 1:
         raise ValueError("`n_dirs` and `n_starts` must be positive integers.")
-    if native.available():
+    if native.available() and n_starts <= native.MAX_DEC_STARTS:
         return _margins_native(T, settled, n_dirs, n_starts)
     rho, b, A, scale = _scaled(T)
     sphere = _sphere_min(rho, b, A)

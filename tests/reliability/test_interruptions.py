@@ -27,6 +27,7 @@ import csv
 import importlib.util
 import io
 import json
+import os
 import re
 import resource
 import shlex
@@ -358,6 +359,43 @@ def test_a_killed_sweep_resumes_without_redoing_finished_combinations(tmp_path, 
         for c in ("NEC", "WEC", "SEC", "DEC"):
             assert row[f"{c}_holds"] == str(want[f"{c}_holds"])
             assert float(row[f"{c}_min_margin"]) == want[f"{c}_min_margin"]
+
+
+def _children(pid: int) -> list[int]:
+    """Child process ids of ``pid`` (Linux /proc)."""
+    try:
+        return [int(c) for c in Path(f"/proc/{pid}/task/{pid}/children").read_text().split()]
+    except (OSError, ValueError):
+        return []
+
+
+@pytest.mark.skipif(not Path("/proc/self/task").exists(), reason="needs Linux /proc")
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM], ids=["Ctrl-C", "SIGTERM"])
+def test_a_signal_to_the_whole_job_leaves_one_line(sig, tmp_path):
+    """A terminal's Ctrl-C reaches every process of the job: the check and the
+    process that follows the crew worldline beside it. Only the documented line
+    is printed (the helper process must not print a traceback), and no output."""
+    path = Path(__file__).resolve().parents[2] / "sample_metrics" / "tanh_wall_bubble.toml"
+    env = child_env(tmp_path / "cache")
+    subprocess.run(auditor_cmd("check", path, "--points", "9", "--quiet"), env=env,
+                   capture_output=True, timeout=300)            # the caches, once
+    proc = subprocess.Popen(auditor_cmd("check", path, "--points", "81", "--quiet", "--json",
+                                        "out.json"),
+                            cwd=tmp_path, env=env, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, stdin=subprocess.DEVNULL,
+                            start_new_session=True, preexec_fn=_sigint_at_default)
+    _wait_for(lambda: _children(proc.pid), proc, 120, "the worldline process to start")
+    os.killpg(proc.pid, sig)
+    out, err = proc.communicate(timeout=60)
+    time.sleep(1.0)                      # a straggling helper would print by now
+    if sig == signal.SIGINT:
+        assert proc.returncode == 130, err
+        assert err.strip().splitlines() == [_doc_line("auditor: interrupted")], err
+    else:
+        _assert_terminated(proc.returncode, err)
+        assert len(err.strip().splitlines()) <= 1, err
+    assert "Traceback" not in err and "Process " not in err
+    _no_outputs(tmp_path)
 
 
 def _signal_on_write(folder, env, sig_name):
