@@ -1254,8 +1254,30 @@ static PyObject *py_he_screen(PyObject *self, PyObject *args)
         double imax = 0.0;
         for (int i = 0; i < 4; i++)
             if (fabs(cimag(lam[i])) > imax) imax = fabs(cimag(lam[i]));
+        /* A clear complex pair (|Im| above twice the type IV threshold, the
+         * other two eigenvalues real to within a quarter of it): the type is IV
+         * whatever those two do. They belong to the orthogonal complement of
+         * the pair's invariant plane, which is spacelike, and M, symmetric
+         * there, is diagonalisable (Hawking & Ellis 1973 §4.3 — from memory):
+         * a cluster of them is no Jordan block, so only clusters that involve
+         * the pair could matter, and those are tested below. */
+        int skip_mask = 0;
+        {
+            int c1 = -1, c2 = -1;
+            for (int i = 0; i < 4; i++)
+                if (fabs(cimag(lam[i])) > 2.0 * k_iv * delta) { if (c1 < 0) c1 = i; else c2 = i; }
+            int others = 0, real_others = 1;
+            for (int i = 0; i < 4; i++)
+                if (i != c1 && i != c2) {
+                    others |= 1 << i;
+                    if (!(fabs(cimag(lam[i])) < 0.25 * k_iv * delta)) real_others = 0;
+                }
+            if (c1 >= 0 && c2 >= 0 && real_others && cimag(lam[c1]) * cimag(lam[c2]) < 0)
+                skip_mask = others;
+        }
         int cand = 0;
         for (int mask = 3; mask < 16 && !cand; mask++) {
+            if (mask == skip_mask) continue;
             int m = __builtin_popcount(mask);
             if (m < 2) continue;
             double cr = 0.0, d2 = 0.0;

@@ -264,9 +264,10 @@ def classify(T, tol) -> np.ndarray:
     """
     T, tol = _check(T, tol)
     if native.available() and T.shape[0]:
-        # Clear cases (vacuum, and widely separated eigenvalues where no subset
-        # can be a candidate cluster) are decided by the compiled screen; the
-        # rest go through the classification below, event by event the same.
+        # Clear cases (vacuum; no subset of eigenvalues that could be a
+        # candidate cluster; a clear complex pair, type IV whatever its two real
+        # eigenvalues do, as they are diagonalisable) are decided by the
+        # compiled screen; the rest go through the classification below.
         code = native.he_screen(T, tol, K_IV, C_SPLIT)
         rest = np.flatnonzero(code < 0)
         if rest.size:

@@ -172,3 +172,34 @@ def test_sampled_minima_match_numpy(rng, monkeypatch):
     tol = 64 * EPS * np.abs(T).max(axis=(1, 2))
     for c in ("nec", "wec", "sec", "dec"):
         assert np.all(np.abs(getattr(a, c) - getattr(b, c)) <= tol), c
+
+
+def test_hawking_ellis_screen_agrees_with_the_full_classification(rng):
+    """Type IV with a degenerate real pair (decided by the screen: Hawking & Ellis
+    1973 §4.3, from memory — the real pair of a type IV tensor is diagonalisable),
+    and fluids and null dust (degenerate or Jordan spectra, left to the full
+    classification), in rotated and boosted frames: the same types both ways."""
+    from auditor.conditions.hawking_ellis import _classify, classify
+
+    def boosted(T0, phi, axis):
+        L = np.eye(4)
+        L[0, 0] = L[axis, axis] = np.cosh(phi)
+        L[0, axis] = L[axis, 0] = np.sinh(phi)
+        q, r = np.linalg.qr(rng.normal(size=(3, 3)))
+        R = np.eye(4)
+        R[1:, 1:] = q * np.sign(np.diag(r))
+        M = L @ R
+        return M.T @ T0 @ M
+
+    iv = np.diag([1.0, -1.0, 0.3, 0.3])
+    iv[0, 1] = iv[1, 0] = 2.0                    # M = ηT has eigenvalues −1 ± 2i, 0.3, 0.3
+    fluid = np.diag([1.0, 0.2, 0.2, 0.2])        # type I, triple eigenvalue
+    null = np.zeros((4, 4))
+    null[np.ix_([0, 1], [0, 1])] = 1.0           # null dust along x: type II
+    Ts = [boosted(T0, phi, axis) for T0 in (iv, fluid, null)
+          for phi in (0.0, 0.5, 1.5) for axis in (1, 2)]
+    T = np.array(Ts)
+    tol = 64 * EPS * np.abs(T).max(axis=(1, 2)) * 10
+    a, b = classify(T, tol), _classify(0.5 * (T + np.swapaxes(T, 1, 2)), tol)
+    assert np.array_equal(a, b)
+    assert list(a[:6]) == [4] * 6 and list(a[6:12]) == [1] * 6 and list(a[12:]) == [2] * 6
