@@ -1345,6 +1345,28 @@ static PyObject *py_gscreen(PyObject *self, PyObject *args)
             if (!isfinite(g[i])) fin = 0;
         }
         if (!fin) { flags[e] = 1.0; continue; }
+        /* Nearly diagonal g (most charts): the eigenvalues lie within the
+         * off-diagonal part's norm E of the diagonal entries (Weyl's inequality;
+         * E = Frobenius norm of the off-diagonal entries >= their 2-norm). If E
+         * is below half the smallest |g_aa| and the degeneracy test passes with
+         * E to spare, the diagonal decides both tests exactly as the
+         * eigenvalues would; otherwise they are computed. */
+        {
+            double off = 0.0, dmin = INFINITY, dmax = 0.0;
+            int dneg = 0;
+            for (int i = 0; i < 4; i++) {
+                double d = fabs(g[5 * i]);
+                if (d < dmin) dmin = d;
+                if (d > dmax) dmax = d;
+                if (g[5 * i] < 0) dneg++;
+                for (int j = i + 1; j < 4; j++) off += 2.0 * g[4 * i + j] * g[4 * i + j];
+            }
+            off = sqrt(off);
+            if (off <= 0.5 * dmin && dmin - off > rtol * (dmax + off)) {
+                if (dneg != 1) flags[e] += 8.0;
+                continue;
+            }
+        }
         jacobi(g, 4, w, V);
         double big = 0.0, small = INFINITY;
         int neg = 0;

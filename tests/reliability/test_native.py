@@ -203,3 +203,30 @@ def test_hawking_ellis_screen_agrees_with_the_full_classification(rng):
     a, b = classify(T, tol), _classify(0.5 * (T + np.swapaxes(T, 1, 2)), tol)
     assert np.array_equal(a, b)
     assert list(a[:6]) == [4] * 6 and list(a[6:12]) == [1] * 6 and list(a[12:]) == [2] * 6
+
+
+def test_metric_screen_matches_eigenvalues(rng):
+    """Degenerate / not Lorentzian decisions of the compiled screen equal those
+    read from numpy.linalg.eigvalsh (geometry.points): nearly diagonal metrics
+    (decided from the diagonal), general ones, degenerate and Riemannian ones."""
+    from auditor.geometry.layout import GIDX, PAIRS
+    from auditor.geometry.points import _DEGENERATE_RTOL
+    n = 3000
+    g = np.zeros((n, 4, 4))
+    g[:] = np.diag([-1.0, 1.0, 1.0, 1.0]) * rng.uniform(0.1, 10.0, size=(n, 1, 4))
+    noise = rng.normal(size=(n, 4, 4)) * rng.choice([1e-6, 0.1, 3.0], size=(n, 1, 1))
+    g += noise + np.swapaxes(noise, 1, 2)
+    g[:200, 3, :] = g[:200, 2, :]                  # rank-deficient rows and columns
+    g[:200, :, 3] = g[:200, :, 2]
+    g[200:400, 0, 0] = np.abs(g[200:400, 0, 0]) + 20.0   # Riemannian (no negative one)
+    rows = np.full((150, n), 0.0)
+    for k, (a, b) in enumerate(PAIRS):
+        rows[k] = g[:, a, b]
+    flags = native.gscreen(rows, GIDX, _DEGENERATE_RTOL)
+    lam = np.linalg.eigvalsh(g)
+    big = np.abs(lam).max(axis=1)
+    degenerate = np.abs(lam).min(axis=1) <= _DEGENERATE_RTOL * big
+    lorentz = (lam < 0).sum(axis=1) == 1
+    assert np.array_equal((flags & 4) != 0, degenerate)
+    assert np.array_equal((flags & 8) != 0, ~degenerate & ~lorentz)
+    assert degenerate.sum() >= 150 and (~degenerate & ~lorentz).sum() >= 150
