@@ -19,6 +19,7 @@ Usable from a notebook::
 from __future__ import annotations
 
 import os
+import signal
 import sys
 import time
 from collections.abc import Mapping
@@ -431,7 +432,14 @@ class _Forked:
         self._recv, send = ctx.Pipe(duplex=False)
         self._proc = ctx.Process(target=_forked_child, args=(send, self._fn, self._args),
                                  daemon=True, name="auditor-worldline")
-        self._proc.start()
+        # Ctrl-C or SIGTERM arriving during the fork would land in an at-fork
+        # callback, where Python prints and drops the exception: hold them until
+        # the fork is over (the child releases them once it has its own handlers).
+        held = signal.pthread_sigmask(signal.SIG_BLOCK, _STOP_SIGNALS)
+        try:
+            self._proc.start()
+        finally:
+            signal.pthread_sigmask(signal.SIG_SETMASK, held)
         send.close()
 
     def result(self):
@@ -451,12 +459,15 @@ class _Forked:
         return value
 
 
+_STOP_SIGNALS = {signal.SIGINT, signal.SIGTERM}
+
+
 def _forked_child(send, fn, args):
-    import signal
     # The parent answers Ctrl-C (the terminal sends it to both) and ends this
     # process with SIGTERM if it stops first: neither may print a traceback here.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.pthread_sigmask(signal.SIG_UNBLOCK, _STOP_SIGNALS)
     try:
         out = ("ok", fn(*args))
     except Exception as exc:   # noqa: BLE001 - handed to the parent
