@@ -1310,10 +1310,11 @@ fail:
 
 /* ------------------------------------------------------------ metric screen */
 /* gscreen(rows (150,N), gidx (16), rtol, flags out (N,)):
- * 1 g not finite; else 2 a derivative not finite (bit added: +0), then
- * 4 degenerate (smallest |eigenvalue| <= rtol * largest) or 8 not Lorentzian
- * (not exactly one negative eigenvalue); 0 when all is well. Eigenvalues by
- * cyclic Jacobi (geometry.points checks the same with numpy.linalg.eigvalsh). */
+ * 1 if g is not finite; otherwise 2 if a derivative is not finite, plus 4 if
+ * g is degenerate (smallest |eigenvalue| <= rtol * largest) or 8 if it is not
+ * Lorentzian (not exactly one negative eigenvalue); 0 when all is well.
+ * Eigenvalues by cyclic Jacobi, or read off the diagonal where that decides
+ * (below); geometry.points checks the same with numpy.linalg.eigvalsh. */
 static PyObject *py_gscreen(PyObject *self, PyObject *args)
 {
     PyObject *oR, *oI, *oF;
