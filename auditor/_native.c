@@ -1,12 +1,18 @@
 /*
  * Compiled per-event loops of the audit (optional accelerator).
  *
- * Each function here is a transcription, event by event, of a NumPy routine
+ * Each function here carries out, event by event, the steps of a NumPy routine
  * that stays in the package as the reference and the fallback:
  *
- *   curvature  <- auditor.geometry.curvature.curvature_from_rows
+ *   curvature  <- auditor.geometry.curvature.curvature_from_rows_numpy
+ *   gscreen    <- the finiteness and signature checks of geometry.points
+ *   eulerian   <- auditor.frames.tetrads.eulerian
+ *   frame      <- conditions.stress.frame_stress / frame_scale, crew.tidal
  *   margins    <- the NEC sphere, WEC/SEC balls of auditor.conditions.margins
  *   dec        <- auditor.conditions.margins._dec_block (the DEC search)
+ *   he_screen  <- the clear cases of auditor.conditions.hawking_ellis
+ *   sampled    <- auditor.conditions.sampled.sampled_margins
+ *   label      <- scipy.ndimage.label (face connectivity)
  *
  * The algorithms, their sources and their accuracy are documented in those
  * modules; the tests compare both implementations.  Everything is IEEE
