@@ -9,11 +9,13 @@ processes or the order of the chunks.
 
 Each finite x is M · 2^(e − 53) with M an integer, |M| < 2^53 (``numpy.frexp``).
 Split M = H · 2^26 + L with |H| < 2^27 and 0 ≤ L < 2^26: the sums of H and of L
-over fewer than 2^26 values stay below 2^53 and are therefore exact in float64
-(``numpy.bincount`` over exponent bins). The sums per exponent are then added as Python integers
-in units of 2^−1126 (the smallest subnormal is 2^−1074 = 2^52 · 2^−1126) and
-divided once; Python's int / int division is correctly rounded. Non-finite
-values are added apart as floats (inf and nan propagate as in any float sum).
+over fewer than 2^26 values stay below 2^53 and are therefore exact in float64.
+They are kept per exponent bin (``numpy.bincount``) in two float arrays across
+calls; every 2^25 values, and when a sum is asked for, the bins are added as
+Python integers in units of 2^−1126 (the smallest subnormal is 2^−1074 =
+2^52 · 2^−1126) and the total is divided once; Python's int / int division is
+correctly rounded. Non-finite values are added apart as floats (inf and nan
+propagate as in any float sum).
 """
 
 from __future__ import annotations
@@ -24,8 +26,7 @@ __all__ = ["ExactSum"]
 
 _UNIT = 1126                  # totals are integers in units of 2^-_UNIT
 _EXP_OFFSET, _EXP_SPAN = 1100, 2200   # frexp exponents lie in [-1073, 1024]
-_PIECE = 1 << 22              # values per bincount: well under 2^26 (exactness above)
-_LOW = (1 << 26) - 1
+_FLUSH_AT = 1 << 25           # values per bin sum: under 2^26 (exactness above)
 
 
 class ExactSum:
@@ -35,6 +36,9 @@ class ExactSum:
         self.groups = int(groups)
         self._total = [0] * self.groups
         self._special = [0.0] * self.groups
+        self._hi = np.zeros(self.groups * _EXP_SPAN)     # Σ H and Σ L per (group, exponent)
+        self._lo = np.zeros(self.groups * _EXP_SPAN)
+        self._pending = 0                                # values in the bins since the flush
 
     def add(self, values, groups=None) -> None:
         """Add ``values`` (any shape) to total 0, or each to total ``groups[i]``."""
@@ -42,8 +46,10 @@ class ExactSum:
         g = None if groups is None else np.asarray(groups, dtype=np.int64).ravel()
         if g is not None and g.shape != v.shape:
             raise ValueError("values and groups differ in size")
-        for a in range(0, v.size, _PIECE):
-            self._add(v[a:a + _PIECE], None if g is None else g[a:a + _PIECE])
+        if g is not None and g.size and (g.min() < 0 or g.max() >= self.groups):
+            raise ValueError(f"group numbers must lie in [0, {self.groups})")
+        for a in range(0, v.size, _FLUSH_AT):
+            self._add(v[a:a + _FLUSH_AT], None if g is None else g[a:a + _FLUSH_AT])
 
     def _add(self, v, g):
         if v.size == 0:
@@ -56,25 +62,41 @@ class ExactSum:
             v = v[fin]
             g = None if g is None else g[fin]
         nz = v != 0.0
-        v = v[nz]
+        if not nz.all():
+            v = v[nz]
+            g = None if g is None else g[nz]
         if v.size == 0:
             return
+        if self._pending + v.size > _FLUSH_AT:
+            self._flush()
+        self._pending += v.size
         mant, exp = np.frexp(v)
-        M = (mant * 2.0 ** 53).astype(np.int64)          # exact: |mant| < 1
-        key = exp.astype(np.int64) + _EXP_OFFSET
+        # M = mant · 2^53 is an integer; H = floor(M / 2^26), L = M − H · 2^26, all
+        # exact in float64 (scalings by powers of two, floor, an exact difference)
+        hi = np.floor(mant * 2.0 ** 27)
+        lo = mant * 2.0 ** 53 - hi * 2.0 ** 26
+        key = exp + _EXP_OFFSET
         if g is not None:
-            key += g[nz] * _EXP_SPAN
+            key = key + g * _EXP_SPAN
         base = int(key.min())
         key -= base
-        hi = np.bincount(key, weights=(M >> 26).astype(np.float64))
-        lo = np.bincount(key, weights=(M & _LOW).astype(np.float64))
-        used = np.flatnonzero((hi != 0.0) | (lo != 0.0))   # a zero sum adds nothing
-        for k, h, l in zip((used + base).tolist(), hi[used].tolist(), lo[used].tolist()):
+        h = np.bincount(key, weights=hi)
+        self._hi[base:base + h.size] += h
+        self._lo[base:base + h.size] += np.bincount(key, weights=lo)
+
+    def _flush(self) -> None:
+        """Move the bin sums into the Python-integer totals."""
+        used = np.flatnonzero((self._hi != 0.0) | (self._lo != 0.0))   # a zero sum adds nothing
+        for k, h, l in zip(used.tolist(), self._hi[used].tolist(), self._lo[used].tolist()):
             grp, e = divmod(k, _EXP_SPAN)
             self._total[grp] += ((int(h) << 26) + int(l)) << (e - _EXP_OFFSET - 53 + _UNIT)
+        self._hi[used] = 0.0
+        self._lo[used] = 0.0
+        self._pending = 0
 
     def value(self, group: int = 0) -> float:
         """The sum of group ``group``, correctly rounded to a double."""
+        self._flush()
         total, special = self._total[group], self._special[group]
         try:
             x = total / (1 << _UNIT)

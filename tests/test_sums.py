@@ -42,3 +42,22 @@ def test_exact_sum_non_finite_values_propagate():
     assert np.isnan(total.value())
     empty = ExactSum(2)
     assert empty.values() == [0.0, 0.0]
+
+
+def test_exact_sum_flushes_its_bins_without_losing_a_value(rng, monkeypatch):
+    # The bin sums are moved into integers every _FLUSH_AT values (2^25 in use);
+    # a small threshold makes every path cross it. Reference: math.fsum.
+    import auditor.sums as sums
+    monkeypatch.setattr(sums, "_FLUSH_AT", 7)
+    x = rng.standard_normal(1000) * 10.0 ** rng.integers(-30, 30, 1000)
+    groups = rng.integers(0, 2, x.size)
+    total = ExactSum(2)
+    for part, grp in zip(np.array_split(x, 37), np.array_split(groups, 37)):
+        total.add(part, grp)
+        total.value(0)                       # a value asked for midway changes nothing
+    assert total.values() == [math.fsum(x[groups == g]) for g in range(2)]
+
+
+def test_exact_sum_refuses_group_numbers_out_of_range():
+    with pytest.raises(ValueError, match="group numbers"):
+        ExactSum(2).add([1.0, 2.0], [0, 2])
