@@ -76,9 +76,8 @@ def _to_coordinates(E: np.ndarray, spatial: np.ndarray) -> np.ndarray:
     v (M,3), (M,K,4) for K vectors per event (M,K,3)."""
     if spatial.ndim == 2:
         return _to_coordinates(E, spatial[:, None, :])[:, 0]
-    out = E[:, None, 0, :] + spatial[:, :, 0, None] * E[:, None, 1, :]
-    out += spatial[:, :, 1, None] * E[:, None, 2, :]
-    out += spatial[:, :, 2, None] * E[:, None, 3, :]
+    out = np.matmul(spatial, E[:, 1:, :])      # Σ_i v^i e_i, event by event
+    out += E[:, None, 0, :]
     return out
 
 
