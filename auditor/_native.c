@@ -168,18 +168,19 @@ static void jacobi(double *a, int n, double *w, double *v)
 /* curvature(rows (150,N), extra (N,), tables..., outputs...)
  * tables: gidx (16), g1,g2,g3 (4*10 each), trows (4*21), q1,q2 (21),
  *         ric_rows (10*16), ric_ginv (10*16), ric_sign (10*16, float),
- *         pidx (16), bi, bj (6), r21idx (36)
+ *         pidx (16)
  * outputs: g, ginv, ricci, einstein (N*16), up (40,N), r21, s21 (21,N),
- *          rscalar, K, Kscale (N) */
+ *          rscalar (N). The Kretschmann scalar is formed in NumPy when asked
+ *          for (auditor/geometry/curvature.py): the audit does not use it. */
 static PyObject *py_curvature(PyObject *self, PyObject *args)
 {
-    PyObject *o[25];
+    PyObject *o[21];
     Py_ssize_t n;
     Buffers bufs = {.n = 0};
-    if (!PyArg_ParseTuple(args, "nOOOOOOOOOOOOOOOOOOOOOOOOO", &n,
+    if (!PyArg_ParseTuple(args, "nOOOOOOOOOOOOOOOOOOOOO", &n,
                           &o[0], &o[1], &o[2], &o[3], &o[4], &o[5], &o[6], &o[7], &o[8],
                           &o[9], &o[10], &o[11], &o[12], &o[13], &o[14], &o[15], &o[16],
-                          &o[17], &o[18], &o[19], &o[20], &o[21], &o[22], &o[23], &o[24]))
+                          &o[17], &o[18], &o[19], &o[20]))
         return NULL;
     if (n < 0) { PyErr_SetString(PyExc_ValueError, "n < 0"); return NULL; }
     GETD(rows, o[0], 150 * n, 0);
@@ -195,26 +196,20 @@ static PyObject *py_curvature(PyObject *self, PyObject *args)
     GETI(ric_ginv, o[10], 160);
     GETD(ric_sign, o[11], 160, 0);
     GETI(pidx, o[12], 16);
-    GETI(bi, o[13], 6);
-    GETI(bj, o[14], 6);
-    GETI(r21idx, o[15], 36);
-    GETD(g_out, o[16], 16 * n, 1);
-    GETD(gi_out, o[17], 16 * n, 1);
-    GETD(ric_out, o[18], 16 * n, 1);
-    GETD(ein_out, o[19], 16 * n, 1);
-    GETD(up_out, o[20], 40 * n, 1);
-    GETD(r21_out, o[21], 21 * n, 1);
-    GETD(s21_out, o[22], 21 * n, 1);
-    GETD(rs_out, o[23], n, 1);
-    GETD(k_out, o[24], 2 * n, 1);        /* K then Kscale */
+    GETD(g_out, o[13], 16 * n, 1);
+    GETD(gi_out, o[14], 16 * n, 1);
+    GETD(ric_out, o[15], 16 * n, 1);
+    GETD(ein_out, o[16], 16 * n, 1);
+    GETD(up_out, o[17], 40 * n, 1);
+    GETD(r21_out, o[18], 21 * n, 1);
+    GETD(s21_out, o[19], 21 * n, 1);
+    GETD(rs_out, o[20], n, 1);
     /* bounds of table entries */
     for (int i = 0; i < 16; i++) if (gidx[i] < 0 || gidx[i] >= 150 || pidx[i] < 0 || pidx[i] >= 10) goto bad;
     for (int i = 0; i < 40; i++) if (g1[i] < 0 || g1[i] >= 150 || g2[i] < 0 || g2[i] >= 150 || g3[i] < 0 || g3[i] >= 150) goto bad;
     for (int i = 0; i < 84; i++) if (trows[i] < 0 || trows[i] >= 150) goto bad;
     for (int i = 0; i < 21; i++) if (q1[i] < 0 || q1[i] >= 100 || q2[i] < 0 || q2[i] >= 100) goto bad;
     for (int i = 0; i < 160; i++) if (ric_rows[i] < 0 || ric_rows[i] > 21 || ric_ginv[i] < 0 || ric_ginv[i] >= 16) goto bad;
-    for (int i = 0; i < 6; i++) if (bi[i] < 0 || bi[i] >= 4 || bj[i] < 0 || bj[i] >= 4) goto bad;
-    for (int i = 0; i < 36; i++) if (r21idx[i] < 0 || r21idx[i] >= 21) goto bad;
 
     Py_BEGIN_ALLOW_THREADS
     /* Events in blocks of CB, stored structure-of-arrays (x[component][event]):
@@ -225,7 +220,7 @@ static PyObject *py_curvature(PyObject *self, PyObject *args)
      * loop over single events. */
     enum { CB = 32 };
     double in[150][CB], gi[16][CB], low[40][CB], up[40][CB], r22[22][CB], ric[10][CB];
-    double bg[36][CB], X[36][CB], o_s21[21][CB], acc[CB], acc2[CB], R[CB];
+    double o_s21[21][CB], acc[CB], R[CB];
     for (Py_ssize_t e0 = 0; e0 < n; e0 += CB) {
         Py_ssize_t nb = n - e0 < CB ? n - e0 : CB;
         for (int r = 0; r < 150; r++) {
@@ -291,31 +286,6 @@ static PyObject *py_curvature(PyObject *self, PyObject *args)
             const double *gg = gi[i], *rr = ric[pidx[i]];
             for (int j = 0; j < CB; j++) R[j] += gg[j] * rr[j];
         }
-        for (int A = 0; A < 6; A++)
-            for (int B = 0; B < 6; B++) {
-                const double *w = gi[4 * bi[A] + bi[B]], *x = gi[4 * bj[A] + bj[B]];
-                const double *y = gi[4 * bi[A] + bj[B]], *z = gi[4 * bj[A] + bi[B]];
-                for (int j = 0; j < CB; j++) bg[6 * A + B][j] = w[j] * x[j] - y[j] * z[j];
-            }
-        for (int A = 0; A < 6; A++)
-            for (int C = 0; C < 6; C++) {
-                for (int j = 0; j < CB; j++) acc[j] = 0.0;
-                for (int B = 0; B < 6; B++) {
-                    const double *rr = r22[r21idx[6 * A + B]], *bb = bg[6 * B + C];
-                    for (int j = 0; j < CB; j++) acc[j] += rr[j] * bb[j];
-                }
-                memcpy(X[6 * A + C], acc, sizeof acc);
-            }
-        for (int j = 0; j < CB; j++) acc[j] = acc2[j] = 0.0;
-        for (int A = 0; A < 6; A++)
-            for (int C = 0; C < 6; C++) {
-                const double *x = X[6 * A + C], *y = X[6 * C + A];
-                for (int j = 0; j < CB; j++) {
-                    double t = x[j] * y[j];
-                    acc[j] += t;
-                    acc2[j] += fabs(t);
-                }
-            }
         for (Py_ssize_t j = 0; j < nb; j++) {
             Py_ssize_t e = e0 + j;
             for (int i = 0; i < 16; i++) {
@@ -326,8 +296,6 @@ static PyObject *py_curvature(PyObject *self, PyObject *args)
                 ein_out[16 * e + i] = rv - 0.5 * R[j] * gv;
             }
             rs_out[e] = R[j];
-            k_out[e] = 4.0 * acc[j];
-            k_out[n + e] = 4.0 * acc2[j];
         }
         for (int i = 0; i < 40; i++) memcpy(up_out + (Py_ssize_t)i * n + e0, up[i], nb * 8);
         for (int i = 0; i < 21; i++) {

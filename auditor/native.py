@@ -59,14 +59,13 @@ def curvature(rows: np.ndarray, extra: np.ndarray, tables: dict) -> dict:
     out = {"g": np.empty((n, 4, 4)), "ginv": np.empty((n, 4, 4)),
            "ricci": np.empty((n, 4, 4)), "einstein": np.empty((n, 4, 4)),
            "up": np.empty((4, 10, n)), "r21": np.empty((21, n)), "scale21": np.empty((21, n)),
-           "rscalar": np.empty(n), "k": np.empty((2, n))}
+           "rscalar": np.empty(n)}
     t = tables
     _lib.curvature(n, rows, extra, _i(t["gidx"]), _i(t["g1"]), _i(t["g2"]), _i(t["g3"]),
                    _i(t["trows"]), _i(t["q1"]), _i(t["q2"]), _i(t["ric_rows"]),
                    _i(t["ric_ginv"]), _f(t["ric_sign"], (10, 16)), _i(t["pidx"]),
-                   _i(t["bi"]), _i(t["bj"]), _i(t["r21"]),
                    out["g"], out["ginv"], out["ricci"], out["einstein"], out["up"],
-                   out["r21"], out["scale21"], out["rscalar"], out["k"])
+                   out["r21"], out["scale21"], out["rscalar"])
     return out
 
 

@@ -136,22 +136,42 @@ class Curvature:
     Component-first: ``rows`` (150,N) kernel output, ``r21``/``scale21`` (21,N)
     independent Riemann components and their round-off scale, ``christoffel10``
     (4,10,N) Γ^a_(bc). Point-first: ``g``, ``ginv``, ``ricci``, ``einstein``
-    (N,4,4); ``ricci_scalar``, ``kretschmann``, ``kretschmann_scale``, ``scale``
-    (N,); ``dg``, ``christoffel``, ``riemann`` on first use.
+    (N,4,4); ``ricci_scalar``, ``scale`` (N,); ``kretschmann``,
+    ``kretschmann_scale`` (N,), ``dg``, ``christoffel``, ``riemann`` on first use
+    (the audit needs none of them).
     """
 
     def __init__(self, rows, g, ginv, christoffel10, r21, scale21, ricci, ricci_scalar,
-                 einstein, kretschmann, kretschmann_scale):
+                 einstein):
         self.rows = rows
         self.g, self.ginv = g, ginv
         self.christoffel10 = christoffel10
         self.r21, self.scale21 = r21, scale21
         self.ricci, self.ricci_scalar, self.einstein = ricci, ricci_scalar, einstein
-        self.kretschmann, self.kretschmann_scale = kretschmann, kretschmann_scale
         self.scale = scale21.max(axis=0) if scale21.size else np.zeros(len(g))
 
     def __len__(self) -> int:
         return self.g.shape[0]
+
+    @cached_property
+    def _kretschmann(self) -> tuple[np.ndarray, np.ndarray]:
+        # K = 4 tr(R 𝒢 R 𝒢) with the bivector metric 𝒢 (6,6,N); its scale sums |terms|
+        gi = np.moveaxis(self.ginv, 0, -1)                           # (4,4,N)
+        i, j = _BI, _BJ
+        biv_g = gi[i][:, i] * gi[j][:, j] - gi[i][:, j] * gi[j][:, i]
+        X = np.einsum("abn,bcn->acn", self.r21[R21], biv_g)
+        kterms = (X * np.swapaxes(X, 0, 1)).reshape(36, len(self))
+        return 4.0 * kterms.sum(axis=0), 4.0 * np.abs(kterms).sum(axis=0)
+
+    @property
+    def kretschmann(self) -> np.ndarray:
+        """(N,) Kretschmann scalar R_abcd R^abcd."""
+        return self._kretschmann[0]
+
+    @property
+    def kretschmann_scale(self) -> np.ndarray:
+        """(N,) sum of the absolute terms of ``kretschmann`` (its round-off scale)."""
+        return self._kretschmann[1]
 
     @cached_property
     def dg(self) -> np.ndarray:
@@ -182,7 +202,7 @@ _NATIVE_TABLES = {"gidx": GIDX.ravel(), "g1": _G1.ravel(), "g2": _G2.ravel(), "g
 
 
 def curvature_from_rows(rows: np.ndarray, extra_abs: np.ndarray | None = None) -> Curvature:
-    """Assemble Γ, Riemann, Ricci, Einstein and Kretschmann from kernel rows (150,N).
+    """Assemble Γ, Riemann, Ricci and Einstein from kernel rows (150,N).
 
     ``extra_abs`` adds an absolute uncertainty of the Riemann components per
     point (used where derivatives were obtained as limits). The compiled loop
@@ -194,7 +214,7 @@ def curvature_from_rows(rows: np.ndarray, extra_abs: np.ndarray | None = None) -
         extra = np.zeros(n) if extra_abs is None else np.asarray(extra_abs, dtype=float)
         o = native.curvature(rows, extra, _NATIVE_TABLES)
         return Curvature(rows, o["g"], o["ginv"], o["up"], o["r21"], o["scale21"], o["ricci"],
-                         o["rscalar"], o["einstein"], o["k"][0], o["k"][1])
+                         o["rscalar"], o["einstein"])
     return curvature_from_rows_numpy(rows, extra_abs)
 
 
@@ -224,15 +244,7 @@ def curvature_from_rows_numpy(rows: np.ndarray, extra_abs: np.ndarray | None = N
     ricci = np.moveaxis(ric10[_PIDX], -1, 0)                         # (N,4,4)
     rscalar = np.einsum("nab,nab->n", ginv, ricci)
     einstein = ricci - 0.5 * rscalar[:, None, None] * g
-    # Kretschmann K = 4 tr(R 𝒢 R 𝒢) with the bivector metric 𝒢 (6,6,N)
-    i, j = _BI, _BJ
-    biv_g = gi[i][:, i] * gi[j][:, j] - gi[i][:, j] * gi[j][:, i]
-    X = np.einsum("abn,bcn->acn", r21[R21], biv_g)
-    kterms = X * np.swapaxes(X, 0, 1)
-    kretschmann = 4.0 * kterms.reshape(36, n).sum(axis=0)
-    kscale = 4.0 * np.abs(kterms).reshape(36, n).sum(axis=0)
-    return Curvature(rows, g, ginv, up, r21, scale21, ricci, rscalar, einstein,
-                     kretschmann, kscale)
+    return Curvature(rows, g, ginv, up, r21, scale21, ricci, rscalar, einstein)
 
 
 def curvature_from_raw(g: np.ndarray, dg: np.ndarray, d2g: np.ndarray,
