@@ -230,3 +230,23 @@ def test_metric_screen_matches_eigenvalues(rng):
     assert np.array_equal((flags & 4) != 0, degenerate)
     assert np.array_equal((flags & 8) != 0, ~degenerate & ~lorentz)
     assert degenerate.sum() >= 150 and (~degenerate & ~lorentz).sum() >= 150
+
+
+def test_metric_screen_flags_every_kind_of_non_finite_entry():
+    """A NaN or infinite derivative anywhere (both infinities in one event
+    included) sets flag 2; a non-finite g sets flag 1 alone (common practice:
+    the same decisions as numpy.isfinite over the rows)."""
+    from auditor.geometry.layout import GIDX, PAIRS
+    from auditor.geometry.points import _DEGENERATE_RTOL
+    n = 8
+    rows = np.full((150, n), 0.25)
+    for k, (a, b) in enumerate(PAIRS):
+        rows[k] = -1.0 if (a, b) == (0, 0) else (1.0 if a == b else 0.0)
+    rows[10, 1] = np.nan
+    rows[149, 2] = np.inf
+    rows[57, 3], rows[58, 3] = np.inf, -np.inf
+    rows[100, 4] = -np.inf
+    rows[0, 5] = np.nan                           # g itself
+    rows[3, 6], rows[20, 6] = np.inf, np.nan
+    flags = native.gscreen(rows, GIDX, _DEGENERATE_RTOL)
+    assert list(flags) == [0, 2, 2, 2, 2, 1, 1, 0]
