@@ -66,6 +66,17 @@ class _KernelPrinter(NumPyPrinter):
             return repr(float(expr))
         return super()._print_Integer(expr)
 
+    def _print_Pow(self, expr, rational=False):
+        # NumPy takes fast paths for the exponents 2, -1 and 1/2; other small
+        # integer powers of a symbol (after CSE, most bases) would go through
+        # pow() element by element, several times slower than the products
+        # (each within a few ulps, as pow is).
+        base, exp = expr.as_base_exp()
+        if base.is_Symbol and exp.is_Integer and (3 <= abs(int(exp)) <= 6 or exp == -2):
+            product = "*".join([self._print(base)] * abs(int(exp)))
+            return f"({product})" if exp > 0 else f"(1/({product}))"
+        return super()._print_Pow(expr, rational=rational)
+
     def _print_StableTanh(self, expr):
         return f"numpy.tanh({self._print(expr.args[0])})"
 
