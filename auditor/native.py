@@ -21,8 +21,8 @@ import os
 
 import numpy as np
 
-__all__ = ["available", "curvature", "dec", "eulerian", "frame", "gscreen", "he_screen",
-           "label", "margins", "sampled", "MAX_DEC_STARTS"]
+__all__ = ["available", "curvature", "dec", "eigvals4", "eulerian", "frame", "gscreen",
+           "he_screen", "label", "margins", "sampled", "MAX_DEC_STARTS"]
 
 #: Most scan directions kept per event by the compiled DEC search (its fixed
 #: table holds 64 starts, seven of them special).
@@ -128,6 +128,16 @@ def he_screen(T: np.ndarray, tol: np.ndarray, k_iv: float, c_split: float) -> np
     code = np.empty(n)
     _lib.he_screen(n, _f(T, (n, 4, 4)), _f(tol, (n,)), code, float(k_iv), float(c_split))
     return code.astype(np.int64)
+
+
+def eigvals4(M: np.ndarray):
+    """Eigenvalues (N, 4) complex of real 4×4 matrices by the QR iteration of the
+    Hawking–Ellis screen, and whether it converged (N,) bool. For the tests."""
+    n = M.shape[0]
+    out = np.empty((n, 8))
+    ok = np.empty(n)
+    _lib.eigvals4(n, _f(M, (n, 4, 4)), out, ok)
+    return out[:, :4] + 1j * out[:, 4:], ok != 0
 
 
 def gscreen(rows: np.ndarray, gidx: np.ndarray, rtol: float) -> np.ndarray:
