@@ -377,10 +377,10 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
             name=c, holds=acc.violating[c] == 0,
             saturated_fraction=float(acc.saturated[c] / audited),
             violating_fraction=float(acc.violating[c] / audited),
-            violating_volume=acc.result(acc.violating_volume[c]) if spatial else None,
+            violating_volume=acc.result(("violating_volume", c)) if spatial else None,
             min_margin=min_margin, worst_point=grid.event(worst),
             refined_min_margin=refined_m, refined_worst_point=refined_pt,
-            volume_integral=acc.result(acc.volume_integral[c]) if spatial else None,
+            volume_integral=acc.result(("volume_integral", c)) if spatial else None,
             regions=tuple(summary_regions), region_count=n_regions,
             cross_check=acc.cross_check(c), core_violating_volume=core,
             min_margin_tolerance=grid_tol[c], refined_tolerance=refined_tol)
@@ -389,10 +389,10 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
     energy = None
     # Eulerian-only output: absent where no slice is spacelike
     if spatial and acc.eulerian_audited:
-        energy = EnergyBudget(total=acc.result(acc.energy_total),
-                              negative_total=acc.result(acc.energy_negative),
+        energy = EnergyBudget(total=acc.result("energy_total"),
+                              negative_total=acc.result("energy_negative"),
                               length_m=metric.length_m,
-                              tolerance=acc.result(acc.energy_tolerance))
+                              tolerance=acc.result("energy_tolerance"))
 
     names = ("vacuum", "I", "II", "III", "IV")
     types = {name: int(acc.he_counts[code]) for code, name in enumerate(names)}
@@ -554,6 +554,13 @@ def _display(values: np.ndarray) -> np.ndarray:
         return np.clip(values, -_F32_MAX, _F32_MAX).astype(np.float32)
 
 
+#: The exact sums of a region audit: proper volume and ∫ min(margin, 0) dV of the
+#: violating events per condition, and the Eulerian energy budget.
+_SUMS = (tuple(("violating_volume", c) for c in CONDITIONS)
+         + tuple(("volume_integral", c) for c in CONDITIONS)
+         + ("energy_total", "energy_negative", "energy_tolerance"))
+
+
 class _Reduction:
     """Everything the audit keeps of the chunks, fed in grid order.
 
@@ -577,10 +584,9 @@ class _Reduction:
         self.saturated = dict.fromkeys(CONDITIONS, 0)
         self.violating = dict.fromkeys(CONDITIONS, 0)
         self._worst = dict.fromkeys(CONDITIONS)          # (value, flat index)
-        self.violating_volume = {c: ExactSum(self.groups) for c in CONDITIONS}
-        self.volume_integral = {c: ExactSum(self.groups) for c in CONDITIONS}
-        self.energy_total, self.energy_negative, self.energy_tolerance = \
-            (ExactSum(self.groups) for _ in range(3))
+        # every sum in one ExactSum: total k · groups + time sample (one pass per chunk)
+        self._sum_index = {key: k for k, key in enumerate(_SUMS)}
+        self._sums = ExactSum(len(_SUMS) * self.groups)
         self.cross = {c: {"exact": [], "sampled": [], "tol": []} for c in CONDITIONS}
         self.tidal_levels = tidal_levels(self.crew_cfg.tidal_limit_g)
         self.tidal = {"defined": 0, "undefined": 0, "peak": None, "floor": None,
@@ -613,7 +619,13 @@ class _Reduction:
 
         w = part["weight"]
         t = self.grid.time_index(a, b) if self.per_time else None
-        group = (lambda sel: None) if t is None else (lambda sel: t[sel])
+        values, totals = [], []
+
+        def stage(key, v, sel):
+            first = self._sum_index[key] * self.groups
+            values.append(v[sel])
+            totals.append(np.full(values[-1].size, first) if t is None else first + t[sel])
+
         tols = margin_tolerances(part["tol_T"])
         for c in CONDITIONS:
             m = part["margin_" + c]
@@ -624,16 +636,17 @@ class _Reduction:
             self.saturated[c] += int(np.count_nonzero(ok & (np.abs(m) <= tol)))
             self._first_min(c, np.where(ok, m, np.nan), a)
             if self.grid.spatial_sampled:
-                self.violating_volume[c].add(w[violating], group(violating))
-                self.volume_integral[c].add(
-                    (np.minimum(np.nan_to_num(m), 0.0) * w)[violating], group(violating))
+                stage(("violating_volume", c), w, violating)
+                stage(("volume_integral", c), np.minimum(np.nan_to_num(m), 0.0) * w, violating)
         rho = part["rho"]
         eul_ok = ok & np.isfinite(rho)
         if self.grid.spatial_sampled and eul_ok.any():
             self.eulerian_audited += int(np.count_nonzero(eul_ok))
-            self.energy_total.add((rho * w)[eul_ok], group(eul_ok))
-            self.energy_negative.add((np.minimum(rho, 0.0) * w)[eul_ok], group(eul_ok))
-            self.energy_tolerance.add((part["tol_T"] * w)[eul_ok], group(eul_ok))
+            stage("energy_total", rho * w, eul_ok)
+            stage("energy_negative", np.minimum(rho, 0.0) * w, eul_ok)
+            stage("energy_tolerance", part["tol_T"] * w, eul_ok)
+        if values:
+            self._sums.add(np.concatenate(values), np.concatenate(totals))
         self._loads(ok, part, a)
 
     def _first_min(self, c, values, a):
@@ -681,9 +694,12 @@ class _Reduction:
             for l in self.station_levels:
                 s["above"][l.key] += int(np.count_nonzero(defined & (sg > l.value_g)))
 
-    def result(self, total: ExactSum):
-        """A float, or a list per time sample when time is sampled."""
-        return total.values() if self.per_time else total.value()
+    def result(self, key):
+        """The sum ``key`` of ``_SUMS``: a float, or a list per time sample when
+        time is sampled."""
+        first = self._sum_index[key] * self.groups
+        totals = [self._sums.value(first + j) for j in range(self.groups)]
+        return totals if self.per_time else totals[0]
 
     def cross_check(self, c) -> dict:
         cx = self.cross[c]
