@@ -110,11 +110,13 @@ static int inv4(const double *a, double *out)
 /* Eigen-decomposition of a symmetric n x n matrix (n <= 4) by the cyclic
  * Jacobi method (Golub & Van Loan, Matrix Computations, 4th ed. §8.5 — from
  * memory): accurate to a few ulps of the norm. `a` is overwritten; eigenvalues
- * ascending in w, eigenvectors in the columns of v (row-major n x n). */
+ * ascending in w, eigenvectors in the columns of v (row-major n x n) unless v
+ * is NULL. */
 static void jacobi(double *a, int n, double *w, double *v)
 {
-    for (int i = 0; i < n; i++)
-        for (int j = 0; j < n; j++) v[n * i + j] = (i == j) ? 1.0 : 0.0;
+    if (v)
+        for (int i = 0; i < n; i++)
+            for (int j = 0; j < n; j++) v[n * i + j] = (i == j) ? 1.0 : 0.0;
     for (int sweep = 0; sweep < 60; sweep++) {
         double off = 0.0, diag = 0.0;
         for (int i = 0; i < n; i++) {
@@ -144,7 +146,7 @@ static void jacobi(double *a, int n, double *w, double *v)
                     a[n * q + k] = s * apk + c * aqk;
                 }
                 a[n * p + q] = a[n * q + p] = 0.0;
-                for (int k = 0; k < n; k++) {            /* V <- V J */
+                for (int k = 0; v && k < n; k++) {       /* V <- V J */
                     double vkp = v[n * k + p], vkq = v[n * k + q];
                     v[n * k + p] = c * vkp - s * vkq;
                     v[n * k + q] = s * vkp + c * vkq;
@@ -156,7 +158,7 @@ static void jacobi(double *a, int n, double *w, double *v)
         int j = i;
         while (j > 0 && w[j - 1] > w[j]) {
             double t = w[j]; w[j] = w[j - 1]; w[j - 1] = t;
-            for (int k = 0; k < n; k++) {
+            for (int k = 0; v && k < n; k++) {
                 double u = v[n * k + j]; v[n * k + j] = v[n * k + j - 1]; v[n * k + j - 1] = u;
             }
             j--;
@@ -957,8 +959,8 @@ fail:
  *       T out (N,16), fscale out (N,), tidal out (N,9), eig out (N,3), vec out (N,9))
  * T = E G E^T / 8 pi symmetrised (conditions.stress.frame_stress); fscale =
  * max of |W| S |W|^T (conditions.stress.frame_scale); tidal E_ij = R_{i0j0}
- * (crew.tidal.tidal_from_bivectors) and its eigen-decomposition (ascending,
- * vectors in columns). */
+ * (crew.tidal.tidal_from_bivectors) with its eigenvalues (ascending) if
+ * want_tidal is 1, and also its eigenvectors (columns; NaN otherwise) if 2. */
 static PyObject *py_frame(PyObject *self, PyObject *args)
 {
     PyObject *o[12];
@@ -1076,7 +1078,9 @@ static PyObject *py_frame(PyObject *self, PyObject *args)
                     }
                 memcpy(tid + 9 * e, Xs, sizeof Xs);
                 if (fin) {
-                    jacobi(Xs, 3, lam, V);
+                    jacobi(Xs, 3, lam, want_tidal > 1 ? V : NULL);
+                    if (want_tidal < 2)
+                        for (int i = 0; i < 9; i++) V[i] = NAN;
                 } else {
                     for (int i = 0; i < 3; i++) lam[i] = NAN;
                     for (int i = 0; i < 9; i++) V[i] = NAN;

@@ -800,7 +800,7 @@ def chunk_fields(metric, geometry, grid, start: int, stop: int, check: np.ndarra
         out["margin_" + c] = nan()
     batch = geometry.evaluate(grid.events(start, stop), metric.parameters)
     out["reason"], out["limit"] = batch.reason, batch.limit
-    fields = analyse(batch, crew_cfg.frame)
+    fields = analyse(batch, crew_cfg.frame, vectors=False)
     cross = {c: {"exact": np.zeros(0), "sampled": np.zeros(0), "tol": np.zeros(0)}
              for c in CONDITIONS}
     out["cross"] = cross
@@ -1004,7 +1004,7 @@ def _refine_all(geometry, metric, grid, worst: dict, start_values: dict, start_t
             xs.append(x)
         x_all = np.concatenate(xs)
         batch = geometry.evaluate(x_all, metric.parameters)
-        f = analyse(batch)
+        f = analyse(batch, vectors=False)
         if f is None:
             break
         okidx = np.flatnonzero(batch.ok)

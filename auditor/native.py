@@ -107,17 +107,18 @@ def eulerian(g: np.ndarray, ginv: np.ndarray):
 
 
 def frame(E: np.ndarray, einstein: np.ndarray, r21: np.ndarray, scale21: np.ndarray,
-          tables: dict, tidal: bool = True) -> dict:
+          tables: dict, tidal: bool = True, vectors: bool = True) -> dict:
     """Frame stress T = E G Eᵀ/8π (symmetrised), the round-off scale of the
     frame components (max |W| S |W|ᵀ) and, if asked, the tidal tensor
-    E_ij = R_{i0j0} with its ascending eigenvalues and eigenvectors (columns)."""
+    E_ij = R_{i0j0} with its ascending eigenvalues and, if asked, its
+    eigenvectors (columns; NaN when not asked for)."""
     n = E.shape[0]
     out = {"T": np.empty((n, 4, 4)), "scale": np.empty(n), "tidal": np.empty((n, 3, 3)),
            "eigenvalues": np.empty((n, 3)), "vectors": np.empty((n, 3, 3))}
     _lib.frame(n, _f(E, (n, 4, 4)), _f(einstein, (n, 4, 4)), _f(r21, (21, n)),
                _f(scale21, (21, n)), _i(tables["r21"]), _i(tables["bi"]), _i(tables["bj"]),
                out["T"], out["scale"], out["tidal"], out["eigenvalues"], out["vectors"],
-               1 if tidal else 0)
+               (2 if vectors else 1) if tidal else 0)
     return out
 
 

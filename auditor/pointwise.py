@@ -60,6 +60,7 @@ class PointFields:
     sqrt_gamma: np.ndarray | None = None             # (M,) NaN off-slice
     tidal_eigenvalues: np.ndarray | None = None      # (M,3) ascending; NaN where undefined
     tidal_vectors: np.ndarray | None = None          # (M,3,3) frame components, columns
+                                                     # (None if not asked for)
     tidal_tol: np.ndarray | None = None              # (M,) round-off of the eigenvalues
     station_accel: np.ndarray | None = None          # (M,) proper acceleration at fixed
                                                      # spatial coordinates (1/length)
@@ -88,11 +89,14 @@ def _det3(m: np.ndarray) -> np.ndarray:
     return a * (d * f - e * e) - b * (b * f - e * c) + c * (b * e - d * c)
 
 
-def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | None:
+def analyse(batch: PointBatch, crew_frame: str = "eulerian", *,
+            vectors: bool = True) -> PointFields | None:
     """Frame, stress-energy, margins, type, Eulerian density and tides of a batch.
 
     ``crew_frame`` picks the observer family of the tidal map: ``eulerian``
     (defined where the slice is spacelike) or ``static`` (where ∂_t is timelike).
+    ``vectors=False`` leaves out the principal directions of the tides
+    (``tidal_vectors`` is then None), which a region audit does not use.
     """
     curv = batch.curvature
     if curv is None:
@@ -103,7 +107,7 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
         if not eul.all():
             E[~eul] = principal(curv.g[~eul])
         parts = native.frame(E, curv.einstein, curv.r21, curv.scale21, _NATIVE_TABLES,
-                             tidal=crew_frame != "static")
+                             tidal=crew_frame != "static", vectors=vectors)
         T = parts["T"]
         t_tol = TOL_FACTOR * _EPS * parts["scale"]
     else:
@@ -137,22 +141,27 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian") -> PointFields | No
     else:
         Ec, cok = E, eul
     lam = np.full((len(T), 3), np.nan)
-    vec = np.full((len(T), 3, 3), np.nan)
+    vec = np.full((len(T), 3, 3), np.nan) if vectors else None
     # Round-off of E_ij = R_{i0j0}: frame components of Riemann carry the same
     # bound as T's (conditions/stress.py), in the crew's own frame.
     if fast:
         if crew_frame == "static":
             parts = native.frame(np.where(cok[:, None, None], Ec, 0.0), curv.einstein,
-                                 curv.r21, curv.scale21, _NATIVE_TABLES)
+                                 curv.r21, curv.scale21, _NATIVE_TABLES, vectors=vectors)
             crew_tol = TOL_FACTOR * _EPS * parts["scale"]
         else:
             crew_tol = t_tol
-        lam[cok], vec[cok] = parts["eigenvalues"][cok], parts["vectors"][cok]
+        lam[cok] = parts["eigenvalues"][cok]
+        if vectors:
+            vec[cok] = parts["vectors"][cok]
         out.tidal_tol = np.where(cok, crew_tol, np.nan)
     else:
         if cok.any():
-            lam[cok], vec[cok] = np.linalg.eigh(tidal_from_bivectors(
-                curv.riemann6()[:, :, cok], Ec[cok]))
+            tides = tidal_from_bivectors(curv.riemann6()[:, :, cok], Ec[cok])
+            if vectors:
+                lam[cok], vec[cok] = np.linalg.eigh(tides)
+            else:
+                lam[cok] = np.linalg.eigvalsh(tides)
         out.tidal_tol = np.where(cok, component_tolerance(curv, np.where(
             cok[:, None, None], Ec, 0.0)), np.nan)
     out.tidal_eigenvalues, out.tidal_vectors = lam, vec

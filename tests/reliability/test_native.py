@@ -286,3 +286,23 @@ def test_screen_eigenvalues_match_lapack(rng):
     # complex pairs come as conjugates, the positive imaginary part first
     lam, _ = native.eigvals4(hard[2:3])
     assert lam[0, 0] == np.conj(lam[0, 1]) and lam[0, 0].imag > 0
+
+
+@pytest.mark.parametrize("crew_frame", ["eulerian", "static"])
+def test_tides_without_principal_directions(geometry_cache, crew_frame):
+    """A region audit asks for the tidal eigenvalues only: they are the same
+    bits as with the eigenvectors, in the compiled loops (common practice: the
+    rotations of the Jacobi method act on the matrix whether or not they are
+    accumulated)."""
+    from tests.conftest import SAMPLES_DIR
+    from auditor.metric import load_metric
+    from auditor.pointwise import analyse
+    path = SAMPLES_DIR / "tanh_wall_bubble.toml"
+    metric = load_metric(path, points=7)
+    grid = Grid.from_region(metric)
+    batch = geometry_cache.path(path).evaluate(grid.events(0, grid.size), metric.parameters)
+    full = analyse(batch, crew_frame)
+    lean = analyse(batch, crew_frame, vectors=False)
+    assert lean.tidal_vectors is None and full.tidal_vectors is not None
+    assert np.array_equal(lean.tidal_eigenvalues, full.tidal_eigenvalues, equal_nan=True)
+    assert np.isfinite(full.tidal_eigenvalues).any()
