@@ -209,6 +209,9 @@ HOSTILE_SOURCES = [
     "def kernel(x, p, out):\n    out[0] = numpy.sqrt.__globals__\n    return out\n",
     "def kernel(x, p, out):\n    out[0] = eval('1')\n    return out\n",
     "def kernel(x, p, out):\n    out[0] = getattr(numpy, 'load')\n    return out\n",
+    'def kernel(x, p, out):\n    with numpy.errstate(all="ignore"):\n        return out\n',
+    "def kernel(x, p, out):\n    out[0] = x  # a comment\n    return out\n",
+    "def kernel(x, p, out):\n    out[0] = x + \\\n        p\n    return out\n",
 ]
 
 
