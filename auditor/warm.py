@@ -6,8 +6,10 @@ the validated description of the metric (everything but its symbolic forms)
 and the sources of its kernels are stored as a *start-up record* beside the
 kernel cache (:mod:`auditor.geometry.cache`). The record's key is a hash of:
 the file's bytes, the ``--set`` items and ``--points`` as given, the tool's
-own source files, and the versions of the tool, Python, NumPy, SymPy and SciPy
-(read from the installed package metadata, without importing SymPy or SciPy).
+own source files, the versions of the tool, Python and NumPy, and the
+installed SymPy and SciPy packages (path, size and modification time of their
+``__init__.py``, found without importing them: a reinstall or an upgrade
+changes them; reading the package metadata instead took ~50 ms at start-up).
 The record also keeps the physical constants read from ``scipy.constants``
 (:func:`auditor.units.constants`), so that a repeat run need not import it.
 
@@ -28,7 +30,7 @@ import hmac
 import json
 import os
 import platform
-from importlib import metadata
+from importlib.util import find_spec
 from pathlib import Path
 
 from . import __version__
@@ -41,21 +43,28 @@ _SYMBOLIC = ("g", "g_display", "coord_symbols", "param_symbols", "user_symbols",
              "definitions", "lapse")
 
 
+def _installed(name: str) -> str:
+    """Where package ``name`` is installed, and the size and modification time
+    of its ``__init__.py`` ("?" if it is not found), without importing it."""
+    try:
+        spec = find_spec(name)
+        st = os.stat(spec.origin)
+    except (ImportError, ValueError, TypeError, AttributeError, OSError):
+        return "?"
+    return f"{spec.origin} {st.st_size} {st.st_mtime_ns}"
+
+
 def _versions() -> list[str]:
     """Everything a record depends on besides the input: the tool's own code (all
     of it: the loader's checks are skipped on a warm start, so a change to any
-    of them must retire old records), Python, NumPy and SymPy."""
+    of them must retire old records), Python, NumPy, SymPy and SciPy."""
     root = Path(__file__).resolve().parent
     code = hashlib.sha256()
     for path in sorted(root.rglob("*.py")):
         code.update(str(path.relative_to(root)).encode() + b"\0")
         code.update(path.read_bytes())
-    found = []
-    for name in ("sympy", "scipy"):     # SciPy: the record keeps its physical constants
-        try:
-            found.append(metadata.version(name))
-        except metadata.PackageNotFoundError:
-            found.append("?")
+    # SciPy: the record keeps its physical constants
+    found = [_installed(name) for name in ("sympy", "scipy")]
     import numpy as np
     return [_FORMAT, __version__, code.hexdigest(), platform.python_version(), np.__version__,
             *found]

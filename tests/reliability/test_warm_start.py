@@ -114,6 +114,21 @@ def test_options_and_file_bytes_are_part_of_the_key(cache_dir, metric_file):
     assert not isinstance(m, WarmMetric) and m.parameters["b"] == 3.0
 
 
+def test_a_reinstalled_package_retires_the_record(cache_dir, metric_file, monkeypatch):
+    """The key holds where SymPy and SciPy are installed and the size and time of
+    their ``__init__.py`` (a reinstall or an upgrade rewrites it)."""
+    import auditor.warm as warm
+    stamp = warm._installed("scipy")
+    assert stamp.split()[0].endswith("__init__.py") and warm._installed("no_such_pkg_x") == "?"
+    open_metric(metric_file)
+    assert isinstance(open_metric(metric_file)[0], WarmMetric)
+    real = warm._installed
+    monkeypatch.setattr(warm, "_installed",
+                        lambda name: real(name) + (" reinstalled" if name == "scipy" else ""))
+    assert not isinstance(open_metric(metric_file)[0], WarmMetric)
+    assert isinstance(open_metric(metric_file)[0], WarmMetric)
+
+
 def test_no_cache_means_no_record(monkeypatch, metric_file, tmp_path):
     monkeypatch.setenv("AUDITOR_NO_CACHE", "1")
     monkeypatch.setenv("AUDITOR_CACHE_DIR", str(tmp_path / "cache"))
