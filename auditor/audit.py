@@ -482,6 +482,16 @@ def _forked_child(send, fn, args):
         pass
 
 
+def _first_of_each(values: np.ndarray):
+    """The distinct values, ascending, and the index of each one's first
+    occurrence: ``numpy.unique(values, return_index=True)`` (whose first call
+    imports numpy.ma, ~30 ms)."""
+    order = np.argsort(values, kind="stable")
+    v = values[order]
+    start = np.flatnonzero(np.concatenate([[True], v[1:] != v[:-1]])) if v.size else order
+    return v[start], order[start]
+
+
 def _cross_check_events(size: int) -> np.ndarray:
     """Flat indices of the cross-check events: all of a small grid, else a seeded
     random subset of about CROSS_CHECK_POINTS (drawn block by block: the same
@@ -932,7 +942,7 @@ def _regions(grid, maps, c, per_time):
         block_min = np.full(n + 1, np.inf)
         np.minimum.at(block_min, lab, m)
         hit = np.flatnonzero(m == block_min[lab])
-        first_lab, first = np.unique(lab[hit], return_index=True)   # first event per label
+        first_lab, first = _first_of_each(lab[hit])                  # first event per label
         better = block_min[first_lab] < mins[first_lab]   # ties keep the earlier block's event
         mins[first_lab[better]] = block_min[first_lab[better]]
         where[first_lab[better]] = a + inside[hit[first[better]]]

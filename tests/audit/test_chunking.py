@@ -119,3 +119,13 @@ def test_regions_match_a_whole_map_reference(rng, monkeypatch):
         assert region.points == int(members.sum())
         assert region.volume == math.fsum(w[members])
         assert region.eulerian_energy == math.fsum((rho * w)[members & np.isfinite(rho)])
+
+
+@pytest.mark.parametrize("n", [0, 1, 7, 5000])
+def test_first_event_of_each_region_label_as_numpy_unique(n, rng):
+    """The regions' first events per label: numpy.unique(..., return_index=True)
+    is the reference (the audit avoids it for its first call's import)."""
+    from auditor.audit import _first_of_each
+    labels = rng.integers(1, 9, n)
+    got, ref = _first_of_each(labels), np.unique(labels, return_index=True)
+    assert np.array_equal(got[0], ref[0]) and np.array_equal(got[1], ref[1])
