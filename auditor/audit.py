@@ -1007,10 +1007,16 @@ def _refine_all(geometry, metric, grid, worst: dict, start_values: dict, start_t
     offs = np.linspace(-1.0, 1.0, per_axis)
     mesh = np.stack(np.meshgrid(*([offs] * len(axes)), indexing="ij"), -1).reshape(-1, len(axes))
     for _ in range(levels):
-        xs = []
+        # conditions whose centres coincide share one box (the same events, so
+        # the same values: every event is computed on its own)
+        boxes = {}
         for c in conds:
-            x = np.repeat(centre[c][None, :], len(mesh), axis=0)
-            x[:, axes] = np.clip(centre[c][axes] + mesh * half, lo, hi)
+            boxes.setdefault(centre[c].tobytes(), len(boxes))
+        xs = []
+        for key in boxes:
+            c0 = np.frombuffer(key)
+            x = np.repeat(c0[None, :], len(mesh), axis=0)
+            x[:, axes] = np.clip(c0[axes] + mesh * half, lo, hi)
             xs.append(x)
         x_all = np.concatenate(xs)
         batch = geometry.evaluate(x_all, metric.parameters)
@@ -1018,7 +1024,8 @@ def _refine_all(geometry, metric, grid, worst: dict, start_values: dict, start_t
         if f is None:
             break
         okidx = np.flatnonzero(batch.ok)
-        for k, c in enumerate(conds):
+        for c in conds:
+            k = boxes[centre[c].tobytes()]
             sel = (okidx >= k * len(mesh)) & (okidx < (k + 1) * len(mesh))
             if not sel.any():
                 continue
