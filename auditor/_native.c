@@ -290,12 +290,18 @@ WIDE static PyObject *py_curvature(PyObject *self, PyObject *args)
             }
         }
         for (int j = 0; j < CB; j++) r22[21][j] = 0.0;
+        /* Terms on the zero row (R_abcd with a = b or c = d) add exactly 0 and
+         * are left out; a sign of -1 subtracts the product (the same bits as
+         * adding g (r (-1))). */
         for (int q = 0; q < 10; q++) {
             for (int j = 0; j < CB; j++) acc[j] = 0.0;
             for (int k = 0; k < 16; k++) {
+                if (ric_rows[16 * q + k] == 21 || ric_sign[16 * q + k] == 0.0) continue;
                 const double *gg = gi[ric_ginv[16 * q + k]], *rr = r22[ric_rows[16 * q + k]];
-                const double sg = ric_sign[16 * q + k];
-                for (int j = 0; j < CB; j++) acc[j] += gg[j] * (rr[j] * sg);
+                if (ric_sign[16 * q + k] > 0)
+                    for (int j = 0; j < CB; j++) acc[j] += gg[j] * rr[j];
+                else
+                    for (int j = 0; j < CB; j++) acc[j] -= gg[j] * rr[j];
             }
             memcpy(ric[q], acc, sizeof acc);
         }
