@@ -13,6 +13,7 @@
  *   he_screen  <- the clear cases of auditor.conditions.hawking_ellis
  *   sampled    <- auditor.conditions.sampled.sampled_margins
  *   label      <- scipy.ndimage.label (face connectivity)
+ *   exact_bins <- the binning of auditor.sums.ExactSum
  *
  * The algorithms, their sources and their accuracy are documented in those
  * modules; the tests compare both implementations.  Everything is IEEE
@@ -1640,6 +1641,64 @@ fail:
     return NULL;
 }
 
+/* ------------------------------------------------------------ exact sums */
+/* exact_bins(n, values (N,), groups (N,) int64 or None, hi, lo (G*span,), G,
+ * offset, span) -> count: the bin sums of auditor.sums.ExactSum._add for
+ * finite values (the caller removes the others), zeros skipped. Each x is
+ * mant * 2^exp (frexp), H = floor(mant * 2^27), L = mant * 2^53 - H * 2^26,
+ * added to bin (group * span + exp + offset): the same operations as the
+ * NumPy code, so the same exact bin sums. Returns the number of values
+ * binned. */
+static PyObject *py_exact_bins(PyObject *self, PyObject *args)
+{
+    PyObject *oV, *oG, *oH, *oL;
+    Py_ssize_t n, G, offset, span;
+    Buffers bufs = {.n = 0};
+    if (!PyArg_ParseTuple(args, "nOOOOnnn", &n, &oV, &oG, &oH, &oL, &G, &offset, &span))
+        return NULL;
+    if (n < 0 || G < 1 || span < 1 || offset < 1100 || offset + 1024 >= span) {
+        PyErr_SetString(PyExc_ValueError, "exact_bins: bad sizes");
+        return NULL;
+    }
+    GETD(v, oV, n, 0);
+    const long long *g = NULL;
+    if (oG != Py_None) {
+        g = (const long long *)get(&bufs, oG, n, 8, 0, "groups");
+        if (!g) goto fail;
+    }
+    GETD(hi, oH, G * span, 1);
+    GETD(lo, oL, G * span, 1);
+    for (Py_ssize_t i = 0; g && i < n; i++)
+        if (g[i] < 0 || g[i] >= G) {
+            PyErr_SetString(PyExc_ValueError, "exact_bins: group out of range");
+            goto fail;
+        }
+    for (Py_ssize_t i = 0; i < n; i++)
+        if (!isfinite(v[i])) {
+            PyErr_SetString(PyExc_ValueError, "exact_bins: non-finite value");
+            goto fail;
+        }
+    Py_ssize_t count = 0;
+    Py_BEGIN_ALLOW_THREADS
+    for (Py_ssize_t i = 0; i < n; i++) {
+        if (v[i] == 0.0) continue;
+        int e;
+        double mant = frexp(v[i], &e);                /* e in [-1073, 1024] */
+        double h = floor(mant * 134217728.0);          /* 2^27 */
+        double l = mant * 9007199254740992.0 - h * 67108864.0;   /* 2^53, 2^26 */
+        Py_ssize_t k = (g ? (Py_ssize_t)g[i] * span : 0) + e + offset;
+        hi[k] += h;
+        lo[k] += l;
+        count++;
+    }
+    Py_END_ALLOW_THREADS
+    release(&bufs);
+    return PyLong_FromSsize_t(count);
+fail:
+    release(&bufs);
+    return NULL;
+}
+
 /* ------------------------------------------------------------ module */
 static PyMethodDef methods[] = {
     {"curvature", py_curvature, METH_VARARGS, "Curvature assembly, event by event."},
@@ -1652,6 +1711,7 @@ static PyMethodDef methods[] = {
     {"eulerian", py_eulerian, METH_VARARGS, "Eulerian tetrads, event by event."},
     {"frame", py_frame, METH_VARARGS, "Frame stress, round-off scale and tides, event by event."},
     {"eigvals4", py_eigvals4, METH_VARARGS, "Eigenvalues of real 4x4 matrices (for the tests)."},
+    {"exact_bins", py_exact_bins, METH_VARARGS, "Bin sums of an exact summation."},
     {NULL, NULL, 0, NULL},
 };
 

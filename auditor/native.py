@@ -21,8 +21,8 @@ import os
 
 import numpy as np
 
-__all__ = ["available", "curvature", "dec", "eigvals4", "eulerian", "frame", "gscreen",
-           "he_screen", "label", "margins", "sampled", "MAX_DEC_STARTS"]
+__all__ = ["available", "curvature", "dec", "eigvals4", "eulerian", "exact_bins", "frame",
+           "gscreen", "he_screen", "label", "margins", "sampled", "MAX_DEC_STARTS"]
 
 #: Most scan directions kept per event by the compiled DEC search (its fixed
 #: table holds 64 starts, seven of them special).
@@ -139,6 +139,21 @@ def eigvals4(M: np.ndarray):
     ok = np.empty(n)
     _lib.eigvals4(n, _f(M, (n, 4, 4)), out, ok)
     return out[:, :4] + 1j * out[:, 4:], ok != 0
+
+
+def exact_bins(values: np.ndarray, groups, hi: np.ndarray, lo: np.ndarray, offset: int,
+               span: int) -> int:
+    """Add finite ``values`` (N,) into the exponent bins ``hi``, ``lo`` of
+    :class:`auditor.sums.ExactSum` (in place, total ``groups[i]`` or 0);
+    returns the number of nonzero values binned."""
+    v = np.ascontiguousarray(values, dtype=np.float64)
+    g = None if groups is None else np.ascontiguousarray(groups, dtype=np.int64)
+    if g is not None and g.shape != v.shape:
+        raise ValueError("values and groups differ in size")
+    if hi.dtype != np.float64 or lo.dtype != np.float64 or not (
+            hi.flags.c_contiguous and lo.flags.c_contiguous) or hi.size != lo.size:
+        raise ValueError("bins must be C-contiguous float64 arrays of one size")
+    return _lib.exact_bins(v.size, v, g, hi, lo, hi.size // span, offset, span)
 
 
 def gscreen(rows: np.ndarray, gidx: np.ndarray, rtol: float) -> np.ndarray:

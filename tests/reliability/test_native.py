@@ -306,3 +306,27 @@ def test_tides_without_principal_directions(geometry_cache, crew_frame):
     assert lean.tidal_vectors is None and full.tidal_vectors is not None
     assert np.array_equal(lean.tidal_eigenvalues, full.tidal_eigenvalues, equal_nan=True)
     assert np.isfinite(full.tidal_eigenvalues).any()
+
+
+def test_exact_sum_bins_equal_the_numpy_binning(rng, monkeypatch):
+    """The compiled binning of ExactSum fills the same bins with the same bits as
+    the NumPy one (values over 600 decades, subnormals, zeros, signs, groups);
+    totals against math.fsum (Python's correctly rounded sum)."""
+    import math
+    from auditor.sums import ExactSum
+    x = rng.standard_normal(6000) * 10.0 ** rng.integers(-300, 300, 6000)
+    x = np.concatenate([x, rng.standard_normal(500) * 1e-310, np.zeros(50), -x[:700]])
+    groups = rng.integers(0, 3, x.size)
+    fast = ExactSum(3)
+    fast.add(x, groups)
+    monkeypatch.setenv("AUDITOR_NO_NATIVE", "1")
+    ref = ExactSum(3)
+    ref.add(x, groups)
+    assert np.array_equal(fast._hi, ref._hi) and np.array_equal(fast._lo, ref._lo)
+    assert fast.values() == ref.values() == [math.fsum(x[groups == k]) for k in range(3)]
+    monkeypatch.delenv("AUDITOR_NO_NATIVE")
+    hi, lo = np.zeros(2200), np.zeros(2200)
+    with pytest.raises(ValueError, match="group out of range"):
+        native.exact_bins(np.ones(2), np.array([0, 1]), hi, lo, 1100, 2200)
+    with pytest.raises(ValueError, match="non-finite"):
+        native.exact_bins(np.array([1.0, np.nan]), None, hi, lo, 1100, 2200)
