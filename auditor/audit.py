@@ -32,7 +32,7 @@ from .conditions.sampled import sampled_margins
 from .crew.limits import CAUTION, tidal_levels
 from .crew.tidal import peak_accel_g
 from .errors import NoAuditablePointError, UsageError
-from .geometry import DEFAULT_CHUNK, REASONS, Geometry
+from .geometry import REASONS, Geometry
 from .grid import Grid
 from .pointwise import CONDITIONS, analyse, margin_tolerances
 from .sums import ExactSum
@@ -60,7 +60,7 @@ REFINE_LEVELS, REFINE_PER_AXIS = 5, 7
 #: labels (5). benchmarks/bench_memory.py measures the whole process.
 BYTES_PER_EVENT = 72
 #: Memory an audit needs beside its maps, bytes: a chunk's temporaries (see
-#: geometry.points.DEFAULT_CHUNK), the cross-check, the refinement and the crew
+#: geometry.points.CHUNK_BYTES), the cross-check, the refinement and the crew
 #: worldline; about 160 MiB measured (benchmarks/bench_memory.py), with headroom.
 WORKING_BYTES = 256 << 20
 #: Largest grid accepted in one audit (events): its maps then take about 2 GiB
@@ -301,15 +301,17 @@ class _Progress:
 
 
 def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None = None,
-          chunk: int = DEFAULT_CHUNK, progress: bool | None = None,
+          chunk: int | None = None, progress: bool | None = None,
           refine: bool = True, crew: bool = True, jobs: int = 1,
           dask: str | None = None) -> AuditResult:
     """Audit the metric's ``[region]`` (see module docstring).
 
-    ``jobs`` > 1 spreads the chunks over that many processes; ``dask`` (a
-    scheduler address) over an existing Dask cluster. Chunks are evaluated by
-    the same code either way and reduced in grid order with exact sums, so the
-    results do not depend on the layout or on the chunk size.
+    ``chunk`` events are evaluated at a time (default: the geometry's
+    :meth:`~auditor.geometry.Geometry.chunk_events`). ``jobs`` > 1 spreads the
+    chunks over that many processes; ``dask`` (a scheduler address) over an
+    existing Dask cluster. Chunks are evaluated by the same code either way and
+    reduced in grid order with exact sums, so the results do not depend on the
+    layout or on the chunk size.
     """
     t0 = time.monotonic()
     if metric.region is None:
@@ -335,6 +337,7 @@ def audit(metric, *, geometry: Geometry | None = None, parameters: dict | None =
 
     checked = _cross_check_events(size)
     acc = _Reduction(grid, metric)
+    chunk = geometry.chunk_events() if chunk is None else int(chunk)
     bounds = [(a, min(a + chunk, size)) for a in range(0, size, chunk)]
     # The crew worldline does not depend on the grid: it is followed in a forked
     # process beside the chunk loop (where the platform forks; forked before

@@ -3,8 +3,8 @@
 For each grid (``--points N``: N³ events of the tanh-wall bubble by default)
 one `auditor check --jobs 1` process runs and its own peak RSS is read with
 ``os.wait4``. The baseline, measured in the same run, is the same check on a
-17³ grid (interpreter, libraries, compiled kernels, and one full chunk's
-temporaries: 4913 events exceed the default chunk). Printed per grid: events,
+25³ grid (interpreter, libraries, compiled kernels, and one full chunk's
+temporaries: 15 625 events exceed the audit's chunk, 13 729 for the bubble). Printed per grid: events,
 wall time, peak RSS, the part above the baseline, bytes per event above it,
 and that figure against ``auditor.audit.BYTES_PER_EVENT`` (the figure the
 audit's memory pre-check uses; a ratio above 1 means the pre-check is too
@@ -39,7 +39,7 @@ from auditor.audit import BYTES_PER_EVENT  # noqa: E402
 BUBBLE = ROOT / "sample_metrics" / "tanh_wall_bubble.toml"
 MiB = 1 << 20
 #: Points per axis of the baseline grid.
-BASE_POINTS = 17
+BASE_POINTS = 25
 
 
 def _env():

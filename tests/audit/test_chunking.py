@@ -14,7 +14,6 @@ import pytest
 from scipy import ndimage
 
 from auditor.audit import ResultMaps, _regions, audit
-from auditor.geometry import DEFAULT_CHUNK
 from auditor.grid import Grid
 from auditor.metric import load_metric, loads_metric
 from auditor.pointwise import CONDITIONS, margin_tolerances
@@ -64,7 +63,7 @@ def test_small_chunks_give_identical_results(case, chunk, geometry_cache):
     assert Grid.from_region(metric).size > 4 * chunk
     big = audit(metric, geometry=geometry, crew=False, progress=False)
     small = audit(metric, geometry=geometry, crew=False, progress=False, chunk=chunk)
-    assert DEFAULT_CHUNK != chunk
+    assert geometry.chunk_events() != chunk
     # verdicts, minima, worst points (grid and refined), regions, energies, tides: all of it
     assert json.dumps(big.to_json(), sort_keys=True) == json.dumps(small.to_json(), sort_keys=True)
     _same_maps(big.maps, small.maps)
@@ -129,3 +128,24 @@ def test_first_event_of_each_region_label_as_numpy_unique(n, rng):
     labels = rng.integers(1, 9, n)
     got, ref = _first_of_each(labels), np.unique(labels, return_index=True)
     assert np.array_equal(got[0], ref[0]) and np.array_equal(got[1], ref[1])
+
+
+def test_the_audit_chunk_follows_the_kernel_size(monkeypatch):
+    """Geometry.chunk_events: CHUNK_BYTES over the bytes per event (the path's
+    arrays plus a double per common subexpression of the kernel), bounded."""
+    from types import SimpleNamespace
+    from auditor.geometry import Geometry
+    from auditor.geometry import points
+
+    def chunk(temps):
+        src = "def kernel(x, p, out):\n" + "".join(f"        _t{i} = x\n" for i in range(temps))
+        return Geometry.chunk_events(SimpleNamespace(kernel=SimpleNamespace(source=src)))
+
+    small, large, huge = chunk(0), chunk(20_000), chunk(10_000_000)
+    assert small == points.MAX_CHUNK and huge == points.MIN_CHUNK
+    assert points.MIN_CHUNK < large < small
+    from auditor import native
+    per_event = points._EVENT_BYTES["native" if native.available() else "numpy"] + 8 * 20_000
+    assert large == points.CHUNK_BYTES // per_event
+    monkeypatch.setenv("AUDITOR_NO_NATIVE", "1")
+    assert chunk(100) == points.CHUNK_BYTES // (points._EVENT_BYTES["numpy"] + 800)
