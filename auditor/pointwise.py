@@ -15,8 +15,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .conditions.hawking_ellis import classify
-from .conditions.margins import margins_with_observers
+from .conditions.hawking_ellis import _classify_checked
+from .conditions.margins import _margins_of_checked
 from . import native
 from .conditions.stress import MARGIN_FACTOR, TOL_FACTOR, component_tolerance, frame_stress
 from .crew.tidal import tidal_from_bivectors
@@ -119,8 +119,13 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian", *,
 
     # Where every component of T is within its round-off the margins cannot leave
     # their tolerance (margins.margins_with_observers): the DEC search is skipped.
+    # T is symmetric by construction (both paths symmetrise it) and finite
+    # wherever the batch is auditable (geometry.points excludes events whose
+    # curvature is not); checked once here instead of by each routine below.
+    if not (np.isfinite(T).all() and np.isfinite(t_tol).all()):
+        raise ValueError("the frame stress of an auditable event is not finite")
     settled = np.abs(T).max(axis=(1, 2)) <= t_tol
-    r = margins_with_observers(T, settled=settled)
+    r = _margins_of_checked(T, settled)
     m, s1, s2 = r["DEC"]
     # the five worst observers, frame to coordinates in one product
     k = _to_coordinates(E, np.stack([r["NEC"][1], r["WEC"][1], r["SEC"][1], s1, s2], axis=1))
@@ -129,7 +134,7 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian", *,
     out.margins["DEC"] = m
     out.observers["DEC"] = k[:, 3]
     out.dec_pair = k[:, 3:5].copy()
-    out.he_type = classify(T, t_tol)
+    out.he_type = _classify_checked(T, t_tol)
 
     out.rho = np.where(eul, T[:, 0, 0], np.nan)
     with np.errstate(invalid="ignore"):

@@ -263,6 +263,13 @@ def classify(T, tol) -> np.ndarray:
         0 vacuum, 1..4 types I..IV; names in :data:`TYPE_NAMES`.
     """
     T, tol = _check(T, tol)
+    return _classify_checked(T, tol)
+
+
+def _classify_checked(T, tol):
+    """:func:`classify` of a T already known to be finite and symmetric and a
+    finite, non-negative tol (N,): no checks, no copies. For
+    :func:`auditor.pointwise.analyse`, whose frame stress and tolerance are."""
     if native.available() and T.shape[0]:
         # Clear cases (vacuum; no subset of eigenvalues that could be a
         # candidate cluster; a clear complex pair, type IV whatever its two real

@@ -659,6 +659,13 @@ def margins_with_observers(T, *, settled=None, **dec_options):
     n_starts = int(dec_options.get("n_starts", DEC_STARTS))
     if n_dirs < 1 or n_starts < 1:
         raise ValueError("`n_dirs` and `n_starts` must be positive integers.")
+    return _margins_of_checked(T, settled, n_dirs, n_starts)
+
+
+def _margins_of_checked(T, settled=None, n_dirs=DEC_DIRECTIONS, n_starts=DEC_STARTS):
+    """:func:`margins_with_observers` of a T already known to be finite and
+    symmetric (float64 (N, 4, 4)): no checks, no copies. For
+    :func:`auditor.pointwise.analyse`, whose frame stress is both."""
     if native.available() and n_starts <= native.MAX_DEC_STARTS:
         return _margins_native(T, settled, n_dirs, n_starts)
     rho, b, A, scale = _scaled(T)
