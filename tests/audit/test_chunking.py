@@ -141,11 +141,12 @@ def test_the_audit_chunk_follows_the_kernel_size(monkeypatch):
         src = "def kernel(x, p, out):\n" + "".join(f"        _t{i} = x\n" for i in range(temps))
         return Geometry.chunk_events(SimpleNamespace(kernel=SimpleNamespace(source=src)))
 
-    small, large, huge = chunk(0), chunk(20_000), chunk(10_000_000)
-    assert small == points.MAX_CHUNK and huge == points.MIN_CHUNK
-    assert points.MIN_CHUNK < large < small
     from auditor import native
-    per_event = points._EVENT_BYTES["native" if native.available() else "numpy"] + 8 * 20_000
-    assert large == points.CHUNK_BYTES // per_event
+    base = points._EVENT_BYTES["native" if native.available() else "numpy"]
+    small, large, huge = chunk(0), chunk(20_000), chunk(10_000_000)
+    assert small == min(points.MAX_CHUNK, points.CHUNK_BYTES // base)
+    assert huge == points.MIN_CHUNK
+    assert points.MIN_CHUNK < large < small
+    assert large == points.CHUNK_BYTES // (base + 8 * 20_000)
     monkeypatch.setenv("AUDITOR_NO_NATIVE", "1")
     assert chunk(100) == points.CHUNK_BYTES // (points._EVENT_BYTES["numpy"] + 800)
