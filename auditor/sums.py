@@ -11,8 +11,9 @@ Each finite x is M · 2^(e − 53) with M an integer, |M| < 2^53 (``numpy.frexp`
 Split M = H · 2^26 + L with |H| < 2^27 and 0 ≤ L < 2^26: the sums of H and of L
 over fewer than 2^26 values stay below 2^53 and are therefore exact in float64.
 They are kept per exponent bin (``numpy.bincount``) in two float arrays across
-calls; every 2^25 values, and when a sum is asked for, the bins are added as
-Python integers in units of 2^−1126 (the smallest subnormal is 2^−1074 =
+calls (for up to 64 totals; with more, each call's bins are added at once);
+every 2^25 values, and when a sum is asked for, the bins are added as Python
+integers in units of 2^−1126 (the smallest subnormal is 2^−1074 =
 2^52 · 2^−1126) and the total is divided once; Python's int / int division is
 correctly rounded. Non-finite values are added apart as floats (inf and nan
 propagate as in any float sum). The binning runs in the compiled loops of
@@ -30,6 +31,7 @@ __all__ = ["ExactSum"]
 _UNIT = 1126                  # totals are integers in units of 2^-_UNIT
 _EXP_OFFSET, _EXP_SPAN = 1100, 2200   # frexp exponents lie in [-1073, 1024]
 _FLUSH_AT = 1 << 25           # values per bin sum: under 2^26 (exactness above)
+_BINNED_TOTALS = 64           # totals whose bins are kept across calls
 
 
 class ExactSum:
@@ -39,8 +41,12 @@ class ExactSum:
         self.groups = int(groups)
         self._total = [0] * self.groups
         self._special = [0.0] * self.groups
-        self._hi = np.zeros(self.groups * _EXP_SPAN)     # Σ H and Σ L per (group, exponent)
-        self._lo = np.zeros(self.groups * _EXP_SPAN)
+        # Σ H and Σ L per (group, exponent), kept across calls for up to
+        # _BINNED_TOTALS totals (2.2 MiB); with more, each call's bins go
+        # straight into the integers (memory stays proportional to the totals).
+        binned = self.groups <= _BINNED_TOTALS
+        self._hi = np.zeros(self.groups * _EXP_SPAN) if binned else None
+        self._lo = np.zeros(self.groups * _EXP_SPAN) if binned else None
         self._pending = 0                                # values in the bins since the flush
 
     def add(self, values, groups=None) -> None:
@@ -66,18 +72,28 @@ class ExactSum:
             g = None if g is None else g[fin]
         if v.size == 0:
             return
+        if self._hi is None:
+            self._to_integers(*self._bins(v, g))
+            return
         if self._pending + v.size > _FLUSH_AT:
             self._flush()
         self._pending += v.size                          # zeros counted too: a bound
         if native.available():      # the same bins, value by value in compiled code
             native.exact_bins(v, g, self._hi, self._lo, _EXP_OFFSET, _EXP_SPAN)
             return
+        hi, lo, base = self._bins(v, g)
+        self._hi[base:base + hi.size] += hi
+        self._lo[base:base + lo.size] += lo
+
+    @staticmethod
+    def _bins(v, g):
+        """Σ H and Σ L of the nonzero values per bin, bins base, base + 1, ..."""
         nz = v != 0.0
         if not nz.all():
             v = v[nz]
             g = None if g is None else g[nz]
-            if v.size == 0:
-                return
+        if v.size == 0:
+            return np.zeros(0), np.zeros(0), 0
         mant, exp = np.frexp(v)
         # M = mant · 2^53 is an integer; H = floor(M / 2^26), L = M − H · 2^26, all
         # exact in float64 (scalings by powers of two, floor, an exact difference)
@@ -88,16 +104,22 @@ class ExactSum:
             key = key + g * _EXP_SPAN
         base = int(key.min())
         key -= base
-        h = np.bincount(key, weights=hi)
-        self._hi[base:base + h.size] += h
-        self._lo[base:base + h.size] += np.bincount(key, weights=lo)
+        return np.bincount(key, weights=hi), np.bincount(key, weights=lo), base
 
-    def _flush(self) -> None:
-        """Move the bin sums into the Python-integer totals."""
-        used = np.flatnonzero((self._hi != 0.0) | (self._lo != 0.0))   # a zero sum adds nothing
-        for k, h, l in zip(used.tolist(), self._hi[used].tolist(), self._lo[used].tolist()):
+    def _to_integers(self, hi, lo, base) -> np.ndarray:
+        """Add bin sums (bins base, base + 1, ...) to the Python-integer totals;
+        returns the indices of the bins that were not zero."""
+        used = np.flatnonzero((hi != 0.0) | (lo != 0.0))   # a zero sum adds nothing
+        for k, h, l in zip((used + base).tolist(), hi[used].tolist(), lo[used].tolist()):
             grp, e = divmod(k, _EXP_SPAN)
             self._total[grp] += ((int(h) << 26) + int(l)) << (e - _EXP_OFFSET - 53 + _UNIT)
+        return used
+
+    def _flush(self) -> None:
+        """Move the kept bin sums into the Python-integer totals."""
+        if self._hi is None or self._pending == 0:
+            return
+        used = self._to_integers(self._hi, self._lo, 0)
         self._hi[used] = 0.0
         self._lo[used] = 0.0
         self._pending = 0

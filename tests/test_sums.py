@@ -61,3 +61,15 @@ def test_exact_sum_flushes_its_bins_without_losing_a_value(rng, monkeypatch):
 def test_exact_sum_refuses_group_numbers_out_of_range():
     with pytest.raises(ValueError, match="group numbers"):
         ExactSum(2).add([1.0, 2.0], [0, 2])
+
+
+def test_exact_sum_with_many_totals_keeps_no_bins(rng):
+    """Past 64 totals the bins go into the integers after every call (memory
+    proportional to the totals, e.g. many time samples). Reference: math.fsum."""
+    x = rng.standard_normal(5000) * 10.0 ** rng.integers(-40, 40, 5000)
+    groups = rng.integers(0, 300, x.size)
+    total = ExactSum(300)
+    for part, grp in zip(np.array_split(x, 9), np.array_split(groups, 9)):
+        total.add(part, grp)
+    assert total._hi is None
+    assert total.values() == [math.fsum(x[groups == g]) for g in range(300)]
