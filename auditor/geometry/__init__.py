@@ -1,10 +1,10 @@
 """Exact curvature: symbolic derivatives, compiled kernels, batch evaluation."""
 
 from .curvature import Curvature, curvature_from_raw
-from .points import DEFAULT_CHUNK, REASONS, Geometry, PointBatch
+from .points import CHUNK_BYTES, REASONS, Geometry, PointBatch
 
 __all__ = ["Curvature", "curvature_from_raw", "compile_metric", "compile_scalars",
-           "DEFAULT_CHUNK", "REASONS", "Geometry", "PointBatch"]
+           "CHUNK_BYTES", "REASONS", "Geometry", "PointBatch"]
 
 
 def __getattr__(name):

@@ -26,7 +26,7 @@ from .curvature import Curvature, curvature_from_rows
 from .compiled import MetricKernel, ScalarKernel, kernel_from_source
 from .layout import GIDX, N_RAW
 
-__all__ = ["REASONS", "Geometry", "PointBatch", "DEFAULT_CHUNK"]
+__all__ = ["REASONS", "Geometry", "PointBatch", "CHUNK_BYTES"]
 
 #: Exclusion reasons, in the order of their integer codes 1, 2, ...
 REASONS = ("singular", "degenerate", "not_lorentzian", "non_positive_lapse",
@@ -36,10 +36,6 @@ _CODE = {r: i + 1 for i, r in enumerate(REASONS)}
 #: perf_counter() of the first kernel evaluation in this process (start-up figures).
 FIRST_EVALUATION: list = [None]
 
-#: Events per chunk where the caller does not say (:meth:`Geometry.chunk_events`
-#: picks the audit's): a chunk's temporaries then stay near 50 MiB on the NumPy
-#: path (about 9 KiB per event for its rank-4 arrays and einsum intermediates).
-DEFAULT_CHUNK = 4096
 #: Memory a chunk of an audit aims at (:meth:`Geometry.chunk_events`), and
 #: the bytes per event besides the kernel's common subexpressions, peak traced
 #: memory of a chunk on the sample metrics (tracemalloc): about 3.6 KiB with
