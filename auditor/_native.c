@@ -27,6 +27,7 @@
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
 #include <complex.h>
+#include <float.h>
 #include <math.h>
 #include <string.h>
 
@@ -44,6 +45,15 @@
 #endif
 #ifndef WIDE
 #define WIDE
+#endif
+/* For loops whose selects must become blends: with trapping math (the
+ * default) GCC keeps a conditional expression over floating-point operands a
+ * branch, and the loop scalar. The values computed are the same; only the
+ * floating-point exception flags, which nothing here reads, may differ. */
+#if defined(__GNUC__) && !defined(__clang__)
+#define NOTRAP __attribute__((optimize("no-trapping-math")))
+#else
+#define NOTRAP
 #endif
 
 /* ------------------------------------------------------------ buffers */
@@ -178,6 +188,94 @@ static void jacobi(double *a, int n, double *w, double *v)
             }
             j--;
         }
+    }
+}
+
+/* jacobi(a, 3, w, v) for JB matrices at once, structure-of-arrays (a[i][j]:
+ * entry i of matrix j), so that the divisions and square roots of different
+ * matrices overlap in wide registers. Each matrix goes through exactly the
+ * operations jacobi() would apply to it alone, in the same order: a matrix
+ * stops at the sweep where jacobi() would stop, and a rotation jacobi() skips
+ * (a_pq = 0) leaves its entries as they were (selected, not multiplied by
+ * c = 1, s = 0, which could flip the sign of a zero). v may be NULL. */
+enum { JB = 16 };
+WIDE NOTRAP static void jacobi3_block(double a[9][JB], double w[3][JB], double v[9][JB])
+{
+    double live[JB];                 /* 1.0 while the matrix is being rotated, else 0.0 */
+    if (v)
+        for (int i = 0; i < 9; i++)
+            for (int j = 0; j < JB; j++) v[i][j] = (i % 4 == 0) ? 1.0 : 0.0;
+    for (int j = 0; j < JB; j++) live[j] = 1.0;
+    for (int sweep = 0; sweep < 60; sweep++) {
+        double any = 0.0;
+        for (int j = 0; j < JB; j++) {
+            double diag = a[0][j] * a[0][j], off = a[1][j] * a[1][j];
+            off += a[2][j] * a[2][j];
+            diag += a[4][j] * a[4][j];
+            off += a[5][j] * a[5][j];
+            diag += a[8][j] * a[8][j];
+            /* branch-free (and so vectorised): (off == 0.0 || off <= 1e-36 diag) */
+            live[j] = (off == 0.0) | (off <= 1e-36 * diag) ? 0.0 : live[j];
+            any += live[j];
+        }
+        if (any == 0.0)
+            break;
+        for (int p = 0; p < 2; p++)
+            for (int q = p + 1; q < 3; q++) {
+                double c[JB], sn[JB];
+                double rot[JB];
+                for (int j = 0; j < JB; j++) {
+                    double apq = a[3 * p + q][j], app = a[4 * p][j], aqq = a[4 * q][j];
+                    rot[j] = apq != 0.0 ? live[j] : 0.0;
+                    double den = apq != 0.0 ? 2.0 * apq : 1.0;
+                    double theta = (aqq - app) / den;
+                    double t = (theta >= 0 ? 1.0 : -1.0) / (fabs(theta) + sqrt(theta * theta + 1.0));
+                    t = fabs(theta) <= DBL_MAX ? t : 0.5 / theta;   /* huge theta */
+                    c[j] = 1.0 / sqrt(t * t + 1.0);
+                    sn[j] = t * c[j];
+                }
+                for (int k = 0; k < 3; k++)                  /* A <- A J */
+                    for (int j = 0; j < JB; j++) {
+                        double akp = a[3 * k + p][j], akq = a[3 * k + q][j];
+                        double np_ = c[j] * akp - sn[j] * akq, nq = sn[j] * akp + c[j] * akq;
+                        a[3 * k + p][j] = rot[j] != 0.0 ? np_ : akp;
+                        a[3 * k + q][j] = rot[j] != 0.0 ? nq : akq;
+                    }
+                for (int k = 0; k < 3; k++)                  /* A <- J^T A */
+                    for (int j = 0; j < JB; j++) {
+                        double apk = a[3 * p + k][j], aqk = a[3 * q + k][j];
+                        double np_ = c[j] * apk - sn[j] * aqk, nq = sn[j] * apk + c[j] * aqk;
+                        a[3 * p + k][j] = rot[j] != 0.0 ? np_ : apk;
+                        a[3 * q + k][j] = rot[j] != 0.0 ? nq : aqk;
+                    }
+                for (int j = 0; j < JB; j++) {
+                    a[3 * p + q][j] = rot[j] != 0.0 ? 0.0 : a[3 * p + q][j];
+                    a[3 * q + p][j] = rot[j] != 0.0 ? 0.0 : a[3 * q + p][j];
+                }
+                if (v)
+                    for (int k = 0; k < 3; k++)              /* V <- V J */
+                        for (int j = 0; j < JB; j++) {
+                            double vkp = v[3 * k + p][j], vkq = v[3 * k + q][j];
+                            double np_ = c[j] * vkp - sn[j] * vkq, nq = sn[j] * vkp + c[j] * vkq;
+                            v[3 * k + p][j] = rot[j] != 0.0 ? np_ : vkp;
+                            v[3 * k + q][j] = rot[j] != 0.0 ? nq : vkq;
+                        }
+            }
+    }
+    for (int j = 0; j < JB; j++) {
+        double ww[3] = {a[0][j], a[4][j], a[8][j]};
+        for (int i = 1; i < 3; i++) {                    /* insertion sort, columns along */
+            int m = i;
+            while (m > 0 && ww[m - 1] > ww[m]) {
+                double t = ww[m]; ww[m] = ww[m - 1]; ww[m - 1] = t;
+                for (int k = 0; v && k < 3; k++) {
+                    double u = v[3 * k + m][j]; v[3 * k + m][j] = v[3 * k + m - 1][j];
+                    v[3 * k + m - 1][j] = u;
+                }
+                m--;
+            }
+        }
+        for (int i = 0; i < 3; i++) w[i][j] = ww[i];
     }
 }
 
@@ -451,52 +549,68 @@ static PyObject *py_margins(PyObject *self, PyObject *args)
     GETD(out, oOut, 20 * n, 1);
     GETD(Qo, oQ, 9 * n, 1);
     Py_BEGIN_ALLOW_THREADS
-    for (Py_ssize_t e = 0; e < n; e++) {
-        const double *Te = T + 16 * e;
-        double scale = 0.0;
-        for (int i = 0; i < 16; i++) if (fabs(Te[i]) > scale) scale = fabs(Te[i]);
-        if (!(scale > 0)) scale = 1.0;
-        double rho = Te[0] / scale, b[3], A[9], Aw[9], lam[3], Q[9], beta[3], beta2[3], d[3];
-        for (int i = 0; i < 3; i++) {
-            b[i] = Te[1 + i] / scale;
-            for (int j = 0; j < 3; j++) A[3 * i + j] = Te[4 * (i + 1) + j + 1] / scale;
+    /* Blocks of JB events: the eigen-decompositions of A together
+     * (jacobi3_block), the rest event by event. */
+    double Ab[9][JB], lamb[3][JB], Qb[9][JB];
+    for (Py_ssize_t e0 = 0; e0 < n; e0 += JB) {
+        Py_ssize_t nb = n - e0 < JB ? n - e0 : JB;
+        for (int j = 0; j < JB; j++) {
+            const double *Te = T + 16 * (e0 + (j < nb ? j : 0));
+            double scale = 0.0;
+            for (int i = 0; i < 16; i++) if (fabs(Te[i]) > scale) scale = fabs(Te[i]);
+            if (!(scale > 0)) scale = 1.0;
+            for (int i = 0; i < 3; i++)
+                for (int k = 0; k < 3; k++) Ab[3 * i + k][j] = Te[4 * (i + 1) + k + 1] / scale;
         }
-        memcpy(Aw, A, sizeof A);
-        jacobi(Aw, 3, lam, Q);
-        for (int i = 0; i < 3; i++) {
-            beta[i] = Q[i] * b[0] + Q[3 + i] * b[1] + Q[6 + i] * b[2];
-            beta2[i] = beta[i] * beta[i];
-            d[i] = lam[i] - lam[0];
-            if (d[i] < 0) d[i] = 0.0;
+        jacobi3_block(Ab, lamb, Qb);
+        for (Py_ssize_t j = 0; j < nb; j++) {
+            Py_ssize_t e = e0 + j;
+            const double *Te = T + 16 * e;
+            double scale = 0.0;
+            for (int i = 0; i < 16; i++) if (fabs(Te[i]) > scale) scale = fabs(Te[i]);
+            if (!(scale > 0)) scale = 1.0;
+            double rho = Te[0] / scale, b[3], A[9], lam[3], Q[9], beta[3], beta2[3], d[3];
+            for (int i = 0; i < 3; i++) {
+                b[i] = Te[1 + i] / scale;
+                for (int k = 0; k < 3; k++) A[3 * i + k] = Te[4 * (i + 1) + k + 1] / scale;
+                lam[i] = lamb[i][j];
+            }
+            for (int i = 0; i < 9; i++) Q[i] = Qb[i][j];
+            for (int i = 0; i < 3; i++) {
+                beta[i] = Q[i] * b[0] + Q[3 + i] * b[1] + Q[6 + i] * b[2];
+                beta2[i] = beta[i] * beta[i];
+                d[i] = lam[i] - lam[0];
+                if (d[i] < 0) d[i] = 0.0;
+            }
+            d[0] = 0.0;
+            int hard;
+            double t = secular(beta2, d, &hard);
+            double s[3];
+            sphere_point(lam, Q, beta, t, s);
+            double valN = quad3(rho, b, A, s);
+            double vW = valN, w[3] = {s[0], s[1], s[2]};
+            ball_interior(rho, b, A, lam, Q, beta, &vW, w);
+            /* SEC: X = T - 1/2 (tr T) eta, same eigenvectors, eigenvalues shifted by c */
+            double trA = A[0] + A[4] + A[8];
+            double trT = -rho + trA;
+            double x00 = rho + 0.5 * trT, xA[9], lamx[3];
+            memcpy(xA, A, sizeof A);
+            for (int i = 0; i < 3; i++) xA[4 * i] = A[4 * i] - 0.5 * trT;
+            double cshift = 0.5 * (trA - rho);
+            for (int i = 0; i < 3; i++) lamx[i] = lam[i] - cshift;
+            double vS = quad3(x00, b, xA, s), ws[3] = {s[0], s[1], s[2]};
+            ball_interior(x00, b, xA, lamx, Q, beta, &vS, ws);
+            double amax = fabs(lam[0]);
+            for (int i = 1; i < 3; i++) if (fabs(lam[i]) > amax) amax = fabs(lam[i]);
+            double need = (t - lam[0] < amax) && !(settled[e] != 0.0);
+            double *o = out + 20 * e;
+            o[0] = scale; o[1] = valN; o[2] = s[0]; o[3] = s[1]; o[4] = s[2];
+            o[5] = vW; o[6] = w[0]; o[7] = w[1]; o[8] = w[2];
+            o[9] = vS; o[10] = ws[0]; o[11] = ws[1]; o[12] = ws[2];
+            o[13] = need; o[14] = t; o[15] = lam[0]; o[16] = lam[1]; o[17] = lam[2];
+            o[18] = hard; o[19] = 0.0;
+            memcpy(Qo + 9 * e, Q, sizeof Q);
         }
-        d[0] = 0.0;
-        int hard;
-        double t = secular(beta2, d, &hard);
-        double s[3];
-        sphere_point(lam, Q, beta, t, s);
-        double valN = quad3(rho, b, A, s);
-        double vW = valN, w[3] = {s[0], s[1], s[2]};
-        ball_interior(rho, b, A, lam, Q, beta, &vW, w);
-        /* SEC: X = T - 1/2 (tr T) eta, same eigenvectors, eigenvalues shifted by c */
-        double trA = A[0] + A[4] + A[8];
-        double trT = -rho + trA;
-        double x00 = rho + 0.5 * trT, xA[9], lamx[3];
-        memcpy(xA, A, sizeof A);
-        for (int i = 0; i < 3; i++) xA[4 * i] = A[4 * i] - 0.5 * trT;
-        double cshift = 0.5 * (trA - rho);
-        for (int i = 0; i < 3; i++) lamx[i] = lam[i] - cshift;
-        double vS = quad3(x00, b, xA, s), ws[3] = {s[0], s[1], s[2]};
-        ball_interior(x00, b, xA, lamx, Q, beta, &vS, ws);
-        double amax = fabs(lam[0]);
-        for (int i = 1; i < 3; i++) if (fabs(lam[i]) > amax) amax = fabs(lam[i]);
-        double need = (t - lam[0] < amax) && !(settled[e] != 0.0);
-        double *o = out + 20 * e;
-        o[0] = scale; o[1] = valN; o[2] = s[0]; o[3] = s[1]; o[4] = s[2];
-        o[5] = vW; o[6] = w[0]; o[7] = w[1]; o[8] = w[2];
-        o[9] = vS; o[10] = ws[0]; o[11] = ws[1]; o[12] = ws[2];
-        o[13] = need; o[14] = t; o[15] = lam[0]; o[16] = lam[1]; o[17] = lam[2];
-        o[18] = hard; o[19] = 0.0;
-        memcpy(Qo + 9 * e, Q, sizeof Q);
     }
     Py_END_ALLOW_THREADS
     release(&bufs);
@@ -1009,7 +1123,7 @@ WIDE static PyObject *py_frame(PyObject *self, PyObject *args)
     Py_BEGIN_ALLOW_THREADS
     /* Blocks of FB events, structure-of-arrays, events innermost (as in
      * py_curvature); the eigen-decomposition of the tidal tensor per event. */
-    enum { FB = 16 };
+    enum { FB = JB };            /* the tidal eigen-decompositions go by jacobi3_block */
     double E[16][FB], G[16][FB], R6[36][FB], S6[36][FB], W[36][FB], Wa[36][FB];
     double EG[16][FB], Y[36][FB], acc[FB], mx[FB], Z[18][FB], X[9][FB];
     for (Py_ssize_t e0 = 0; e0 < n; e0 += FB) {
@@ -1088,26 +1202,28 @@ WIDE static PyObject *py_frame(PyObject *self, PyObject *args)
                         for (int j = 0; j < FB; j++) acc[j] += Z[6 * i + B][j] * W[6 * k + B][j];
                     memcpy(X[3 * i + k], acc, sizeof acc);
                 }
-            for (Py_ssize_t j = 0; j < nb; j++) {
-                Py_ssize_t e = e0 + j;
-                double Xs[9], lam[3], V[9];
-                int fin = 1;
+            /* the symmetrised tidal tensors, then their eigen-decompositions
+             * together (a non-finite one, or padding, replaced by zeros and
+             * its results by NaN) */
+            double Xb[9][JB], lamb[3][JB], Vb[9][JB];
+            int fin[JB];
+            for (int j = 0; j < JB; j++) {
+                double Xs[9];
+                fin[j] = j < nb;
                 for (int i = 0; i < 3; i++)
                     for (int k = 0; k < 3; k++) {
                         Xs[3 * i + k] = 0.5 * (X[3 * i + k][j] + X[3 * k + i][j]);
-                        if (!isfinite(Xs[3 * i + k])) fin = 0;
+                        if (!isfinite(Xs[3 * i + k])) fin[j] = 0;
                     }
-                memcpy(tid + 9 * e, Xs, sizeof Xs);
-                if (fin) {
-                    jacobi(Xs, 3, lam, want_tidal > 1 ? V : NULL);
-                    if (want_tidal < 2)
-                        for (int i = 0; i < 9; i++) V[i] = NAN;
-                } else {
-                    for (int i = 0; i < 3; i++) lam[i] = NAN;
-                    for (int i = 0; i < 9; i++) V[i] = NAN;
-                }
-                memcpy(eig + 3 * e, lam, sizeof lam);
-                memcpy(vec + 9 * e, V, sizeof V);
+                if (j < nb) memcpy(tid + 9 * (e0 + j), Xs, sizeof Xs);
+                for (int i = 0; i < 9; i++) Xb[i][j] = fin[j] ? Xs[i] : 0.0;
+            }
+            jacobi3_block(Xb, lamb, want_tidal > 1 ? Vb : NULL);
+            for (Py_ssize_t j = 0; j < nb; j++) {
+                Py_ssize_t e = e0 + j;
+                int keepv = fin[j] && want_tidal > 1;
+                for (int i = 0; i < 3; i++) eig[3 * e + i] = fin[j] ? lamb[i][j] : NAN;
+                for (int i = 0; i < 9; i++) vec[9 * e + i] = keepv ? Vb[i][j] : NAN;
             }
         }
     }
@@ -1415,7 +1531,7 @@ WIDE static PyObject *py_gscreen(PyObject *self, PyObject *args)
     for (Py_ssize_t e = 0; e < n; e++)
         flags[e] = flags[e] == 0.0 ? 0.0 : 2.0;
     for (Py_ssize_t e = 0; e < n; e++) {
-        double g[16], w[4], V[16];
+        double g[16], w[4];
         int fin = 1;
         for (int i = 0; i < 16; i++) {
             g[i] = rows[gidx[i] * n + e];
@@ -1444,7 +1560,7 @@ WIDE static PyObject *py_gscreen(PyObject *self, PyObject *args)
                 continue;
             }
         }
-        jacobi(g, 4, w, V);
+        jacobi(g, 4, w, NULL);
         double big = 0.0, small = INFINITY;
         int neg = 0;
         for (int i = 0; i < 4; i++) {
