@@ -813,8 +813,13 @@ static double dec_newton(const Stress *S, double *s1, double *s2, double F, int 
                           + step[3] * step[3]);
         if (nrm > 0.5) for (int i = 0; i < 4; i++) step[i] *= 0.5 / nrm;
         double t1[3], t2[3], u1[3], u2[3];
+        double gn = sqrt(G[0] * G[0] + G[1] * G[1] + G[2] * G[2] + G[3] * G[3]);
         double best = dec_try(S, s1, s2, E1, E2, step, 1.0, t1, t2);
-        if (best >= F) {
+        /* A refused step is shortened, unless its model decrease ~|G||step| is
+         * already at the round-off of F: a shorter one could then lower F by
+         * round-off only (the row stops below, at a point that is no saddle
+         * if the curvature steps find nothing either). */
+        if (best >= F && gn * nrm > STOP_DECREASE) {
             double frac = 1.0;
             for (int k = 0; k < backtrack; k++) {
                 frac *= 0.25;
@@ -840,7 +845,6 @@ static double dec_newton(const Stress *S, double *s1, double *s2, double F, int 
             memcpy(s2, t2, sizeof t2);
             F = best;
         }
-        double gn = sqrt(G[0] * G[0] + G[1] * G[1] + G[2] * G[2] + G[3] * G[3]);
         if (!(better && gn > 4.0 * EPS)) break;
         /* Converged: the model decrease of the Newton step, ~|G||step|, and
          * the decrease actually obtained are both at the round-off of F
