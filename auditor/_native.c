@@ -340,10 +340,16 @@ WIDE static PyObject *py_curvature(PyObject *self, PyObject *args)
     double o_s21[21][CB], acc[CB], R[CB];
     for (Py_ssize_t e0 = 0; e0 < n; e0 += CB) {
         Py_ssize_t nb = n - e0 < CB ? n - e0 : CB;
-        for (int r = 0; r < 150; r++) {
-            memcpy(in[r], rows + (Py_ssize_t)r * n + e0, nb * sizeof(double));
-            for (Py_ssize_t j = nb; j < CB; j++) in[r][j] = in[r][0];   /* padding */
-        }
+        if (nb == CB)                            /* a whole block: fixed-size copies */
+            for (int r = 0; r < 150; r++) {
+                const double *src = rows + (Py_ssize_t)r * n + e0;
+                for (int j = 0; j < CB; j++) in[r][j] = src[j];
+            }
+        else
+            for (int r = 0; r < 150; r++) {
+                memcpy(in[r], rows + (Py_ssize_t)r * n + e0, nb * sizeof(double));
+                for (Py_ssize_t j = nb; j < CB; j++) in[r][j] = in[r][0];   /* padding */
+            }
         for (int j = 0; j < CB; j++) {           /* pivoted inverse, event by event */
             double g[16], inv[16];
             for (int i = 0; i < 16; i++) g[i] = in[gidx[i]][j];
