@@ -1044,7 +1044,7 @@ fail:
 /* eulerian(g (N,16), ginv (N,16), E out (N,16), ok out (N,) float 0/1):
  * frames.tetrads.eulerian, event by event (modified Gram-Schmidt of the
  * coordinate axes after n^mu = -N g^{t mu}). */
-static PyObject *py_eulerian(PyObject *self, PyObject *args)
+WIDE static PyObject *py_eulerian(PyObject *self, PyObject *args)
 {
     PyObject *oG, *oGi, *oE, *oOk;
     Py_ssize_t n;
@@ -1057,40 +1057,55 @@ static PyObject *py_eulerian(PyObject *self, PyObject *args)
     GETD(E, oE, 16 * n, 1);
     GETD(ok, oOk, n, 1);
     Py_BEGIN_ALLOW_THREADS
-    for (Py_ssize_t e = 0; e < n; e++) {
-        const double *G = g + 16 * e, *Gi = gi + 16 * e;
-        double L[4][4];
-        double gtt = Gi[0];
-        double lapse = 1.0 / sqrt(-gtt);
-        for (int m = 0; m < 4; m++) L[0][m] = -lapse * Gi[m];
-        for (int k = 1; k < 4; k++) {
-            double w[4] = {0, 0, 0, 0};
-            w[k] = 1.0;
-            for (int j = 0; j < k; j++) {
-                double eta = j == 0 ? -1.0 : 1.0, dot = 0.0;
-                for (int a = 0; a < 4; a++) {
-                    double ga = 0.0;
-                    for (int b = 0; b < 4; b++) ga += G[4 * a + b] * L[j][b];
-                    dot += w[a] * ga;
-                }
-                for (int a = 0; a < 4; a++) w[a] -= eta * dot * L[j][a];
-            }
-            double n2 = 0.0;
-            for (int a = 0; a < 4; a++) {
-                double ga = 0.0;
-                for (int b = 0; b < 4; b++) ga += G[4 * a + b] * w[b];
-                n2 += w[a] * ga;
-            }
-            double nr = sqrt(n2);
-            for (int a = 0; a < 4; a++) L[k][a] = w[a] / nr;
+    /* Blocks of EB events, structure-of-arrays, events innermost: each event
+     * goes through the operations of a loop over single events, in the same
+     * order (the square roots and divisions of a block share wide registers). */
+    enum { EB = 16 };
+    double Gb[16][EB], L[4][4][EB], w[4][EB], ga[EB], dot[EB], nr[EB];
+    for (Py_ssize_t e0 = 0; e0 < n; e0 += EB) {
+        Py_ssize_t nb = n - e0 < EB ? n - e0 : EB;
+        for (int j = 0; j < EB; j++) {
+            Py_ssize_t e = e0 + (j < nb ? j : 0);        /* padding: the block's first event */
+            for (int i = 0; i < 16; i++) Gb[i][j] = g[16 * e + i];
+            double lapse = 1.0 / sqrt(-gi[16 * e]);
+            for (int m = 0; m < 4; m++) L[0][m][j] = -lapse * gi[16 * e + m];
         }
-        int fin = gtt < 0;
-        for (int a = 0; a < 4; a++)
-            for (int b = 0; b < 4; b++) {
-                E[16 * e + 4 * a + b] = L[a][b];
-                if (!isfinite(L[a][b])) fin = 0;
+        for (int k = 1; k < 4; k++) {
+            for (int a_ = 0; a_ < 4; a_++)
+                for (int j = 0; j < EB; j++) w[a_][j] = a_ == k ? 1.0 : 0.0;
+            for (int jj = 0; jj < k; jj++) {
+                double eta = jj == 0 ? -1.0 : 1.0;
+                for (int j = 0; j < EB; j++) dot[j] = 0.0;
+                for (int a_ = 0; a_ < 4; a_++) {
+                    for (int j = 0; j < EB; j++) ga[j] = 0.0;
+                    for (int b_ = 0; b_ < 4; b_++)
+                        for (int j = 0; j < EB; j++) ga[j] += Gb[4 * a_ + b_][j] * L[jj][b_][j];
+                    for (int j = 0; j < EB; j++) dot[j] += w[a_][j] * ga[j];
+                }
+                for (int a_ = 0; a_ < 4; a_++)
+                    for (int j = 0; j < EB; j++) w[a_][j] -= eta * dot[j] * L[jj][a_][j];
             }
-        ok[e] = fin;
+            for (int j = 0; j < EB; j++) dot[j] = 0.0;      /* n2 = g(w, w) */
+            for (int a_ = 0; a_ < 4; a_++) {
+                for (int j = 0; j < EB; j++) ga[j] = 0.0;
+                for (int b_ = 0; b_ < 4; b_++)
+                    for (int j = 0; j < EB; j++) ga[j] += Gb[4 * a_ + b_][j] * w[b_][j];
+                for (int j = 0; j < EB; j++) dot[j] += w[a_][j] * ga[j];
+            }
+            for (int j = 0; j < EB; j++) nr[j] = sqrt(dot[j]);
+            for (int a_ = 0; a_ < 4; a_++)
+                for (int j = 0; j < EB; j++) L[k][a_][j] = w[a_][j] / nr[j];
+        }
+        for (Py_ssize_t j = 0; j < nb; j++) {
+            Py_ssize_t e = e0 + j;
+            int fin = gi[16 * e] < 0;
+            for (int a_ = 0; a_ < 4; a_++)
+                for (int b_ = 0; b_ < 4; b_++) {
+                    E[16 * e + 4 * a_ + b_] = L[a_][b_][j];
+                    if (!isfinite(L[a_][b_][j])) fin = 0;
+                }
+            ok[e] = fin;
+        }
     }
     Py_END_ALLOW_THREADS
     release(&bufs);
@@ -1138,18 +1153,30 @@ WIDE static PyObject *py_frame(PyObject *self, PyObject *args)
     double EG[16][FB], Y[36][FB], acc[FB], mx[FB], Z[18][FB], X[9][FB];
     for (Py_ssize_t e0 = 0; e0 < n; e0 += FB) {
         Py_ssize_t nb = n - e0 < FB ? n - e0 : FB;
-        for (int i = 0; i < 16; i++)
-            for (int j = 0; j < FB; j++) {
-                Py_ssize_t e = e0 + (j < nb ? j : 0);
-                E[i][j] = Ev[16 * e + i];
-                G[i][j] = Gv[16 * e + i];
+        if (nb == FB) {                           /* a whole block: plain strided loads */
+            for (int i = 0; i < 16; i++)
+                for (int j = 0; j < FB; j++) {
+                    E[i][j] = Ev[16 * (e0 + j) + i];
+                    G[i][j] = Gv[16 * (e0 + j) + i];
+                }
+            for (int A = 0; A < 36; A++) {
+                const double *rr = r21 + r21idx[A] * n + e0, *ss = s21 + r21idx[A] * n + e0;
+                for (int j = 0; j < FB; j++) { R6[A][j] = rr[j]; S6[A][j] = ss[j]; }
             }
-        for (int A = 0; A < 36; A++)
-            for (int j = 0; j < FB; j++) {
-                Py_ssize_t e = e0 + (j < nb ? j : 0);
-                R6[A][j] = r21[r21idx[A] * n + e];
-                S6[A][j] = s21[r21idx[A] * n + e];
-            }
+        } else {                                  /* the last block, padded with its first event */
+            for (int i = 0; i < 16; i++)
+                for (int j = 0; j < FB; j++) {
+                    Py_ssize_t e = e0 + (j < nb ? j : 0);
+                    E[i][j] = Ev[16 * e + i];
+                    G[i][j] = Gv[16 * e + i];
+                }
+            for (int A = 0; A < 36; A++)
+                for (int j = 0; j < FB; j++) {
+                    Py_ssize_t e = e0 + (j < nb ? j : 0);
+                    R6[A][j] = r21[r21idx[A] * n + e];
+                    S6[A][j] = s21[r21idx[A] * n + e];
+                }
+        }
         /* T_ab = sum_mv E[a,m] E[b,v] G[m,v] / 8 pi, symmetrised */
         for (int b_ = 0; b_ < 4; b_++)
             for (int m = 0; m < 4; m++) {
