@@ -286,19 +286,22 @@ WIDE NOTRAP static void jacobi3_block(double a[9][JB], double w[3][JB], double v
  *         pidx (16)
  * outputs: g, ginv, ricci, einstein (N*16), up (40,N), r21, s21 (21,N),
  *          rscalar (N). The Kretschmann scalar is formed in NumPy when asked
- *          for (auditor/geometry/curvature.py): the audit does not use it. */
+ *          for (auditor/geometry/curvature.py): the audit does not use it.
+ * crow (150): the value of each row that holds one number at every event
+ *          (taken from here instead of read), NaN for rows to read. */
 WIDE static PyObject *py_curvature(PyObject *self, PyObject *args)
 {
-    PyObject *o[21];
+    PyObject *o[22];
     Py_ssize_t n;
     Buffers bufs = {.n = 0};
-    if (!PyArg_ParseTuple(args, "nOOOOOOOOOOOOOOOOOOOOO", &n,
+    if (!PyArg_ParseTuple(args, "nOOOOOOOOOOOOOOOOOOOOOO", &n,
                           &o[0], &o[1], &o[2], &o[3], &o[4], &o[5], &o[6], &o[7], &o[8],
                           &o[9], &o[10], &o[11], &o[12], &o[13], &o[14], &o[15], &o[16],
-                          &o[17], &o[18], &o[19], &o[20]))
+                          &o[17], &o[18], &o[19], &o[20], &o[21]))
         return NULL;
     if (n < 0) { PyErr_SetString(PyExc_ValueError, "n < 0"); return NULL; }
     GETD(rows, o[0], 150 * n, 0);
+    GETD(crow, o[21], 150, 0);
     GETD(extra, o[1], n, 0);
     GETI(gidx, o[2], 16);
     GETI(g1, o[3], 40);
@@ -340,16 +343,17 @@ WIDE static PyObject *py_curvature(PyObject *self, PyObject *args)
     double o_s21[21][CB], acc[CB], R[CB];
     for (Py_ssize_t e0 = 0; e0 < n; e0 += CB) {
         Py_ssize_t nb = n - e0 < CB ? n - e0 : CB;
-        if (nb == CB)                            /* a whole block: fixed-size copies */
-            for (int r = 0; r < 150; r++) {
+        for (int r = 0; r < 150; r++) {
+            if (crow[r] == crow[r]) {            /* a constant row: its value, not read */
+                for (int j = 0; j < CB; j++) in[r][j] = crow[r];
+            } else if (nb == CB) {               /* a whole block: a fixed-size copy */
                 const double *src = rows + (Py_ssize_t)r * n + e0;
                 for (int j = 0; j < CB; j++) in[r][j] = src[j];
-            }
-        else
-            for (int r = 0; r < 150; r++) {
+            } else {
                 memcpy(in[r], rows + (Py_ssize_t)r * n + e0, nb * sizeof(double));
                 for (Py_ssize_t j = nb; j < CB; j++) in[r][j] = in[r][0];   /* padding */
             }
+        }
         for (int j = 0; j < CB; j++) {           /* pivoted inverse, event by event */
             double g[16], inv[16];
             for (int i = 0; i < 16; i++) g[i] = in[gidx[i]][j];
@@ -1533,22 +1537,25 @@ fail:
 }
 
 /* ------------------------------------------------------------ metric screen */
-/* gscreen(rows (150,N), gidx (16), rtol, flags out (N,)):
+/* gscreen(rows (150,N), gidx (16), rtol, flags out (N,), crow (150)):
  * 1 if g is not finite; otherwise 2 if a derivative is not finite, plus 4 if
  * g is degenerate (smallest |eigenvalue| <= rtol * largest) or 8 if it is not
  * Lorentzian (not exactly one negative eigenvalue); 0 when all is well.
  * Eigenvalues by cyclic Jacobi, or read off the diagonal where that decides
- * (below); geometry.points checks the same with numpy.linalg.eigvalsh. */
+ * (below); geometry.points checks the same with numpy.linalg.eigvalsh.
+ * crow: as for curvature (a constant row is finite and is not read). */
 WIDE static PyObject *py_gscreen(PyObject *self, PyObject *args)
 {
     PyObject *oR, *oI, *oF;
     Py_ssize_t n;
     double rtol;
     Buffers bufs = {.n = 0};
-    if (!PyArg_ParseTuple(args, "nOOdO", &n, &oR, &oI, &rtol, &oF))
+    PyObject *oC;
+    if (!PyArg_ParseTuple(args, "nOOdOO", &n, &oR, &oI, &rtol, &oF, &oC))
         return NULL;
     if (n < 0) { PyErr_SetString(PyExc_ValueError, "n < 0"); return NULL; }
     GETD(rows, oR, 150 * n, 0);
+    GETD(crow, oC, 150, 0);
     GETI(gidx, oI, 16);
     GETD(flags, oF, n, 1);
     for (int i = 0; i < 16; i++) if (gidx[i] < 0 || gidx[i] >= 10) {
@@ -1561,6 +1568,7 @@ WIDE static PyObject *py_gscreen(PyObject *self, PyObject *args)
      * sum is 0 exactly where every derivative is finite. */
     for (Py_ssize_t e = 0; e < n; e++) flags[e] = 0.0;
     for (int r = 10; r < 150; r++) {
+        if (crow[r] == crow[r]) continue;        /* a constant row: finite, not read */
         const double *row = rows + (Py_ssize_t)r * n;
         for (Py_ssize_t e = 0; e < n; e++)
             flags[e] += row[e] - row[e];

@@ -28,6 +28,8 @@ __all__ = ["available", "curvature", "dec", "eigvals4", "eulerian", "exact_bins"
 #: table holds 64 starts, seven of them special).
 MAX_DEC_STARTS = 57
 
+_NO_CONSTANT = np.full(150, np.nan)      # every kernel row is read
+
 try:  # pragma: no branch - depends on the build
     from . import _native as _lib
 except ImportError:   # built without a C compiler
@@ -50,9 +52,12 @@ def _i(a) -> np.ndarray:
     return np.ascontiguousarray(a, dtype=np.int64)
 
 
-def curvature(rows: np.ndarray, extra: np.ndarray, tables: dict) -> dict:
+def curvature(rows: np.ndarray, extra: np.ndarray, tables: dict,
+              constant: np.ndarray | None = None) -> dict:
     """Curvature from kernel rows (150, N): the arrays of
-    :func:`auditor.geometry.curvature.curvature_from_rows`."""
+    :func:`auditor.geometry.curvature.curvature_from_rows`. ``constant`` (150,)
+    gives the value of rows that hold one number at every event (NaN for the
+    others): those are not read."""
     n = rows.shape[1]
     rows = _f(rows, (150, n))
     extra = _f(extra, (n,))
@@ -65,8 +70,12 @@ def curvature(rows: np.ndarray, extra: np.ndarray, tables: dict) -> dict:
                    _i(t["trows"]), _i(t["q1"]), _i(t["q2"]), _i(t["ric_rows"]),
                    _i(t["ric_ginv"]), _f(t["ric_sign"], (10, 16)), _i(t["pidx"]),
                    out["g"], out["ginv"], out["ricci"], out["einstein"], out["up"],
-                   out["r21"], out["scale21"], out["rscalar"])
+                   out["r21"], out["scale21"], out["rscalar"], _constant(constant))
     return out
+
+
+def _constant(constant) -> np.ndarray:
+    return _NO_CONSTANT if constant is None else _f(constant, (150,))
 
 
 def margins(T: np.ndarray, settled: np.ndarray):
@@ -156,13 +165,16 @@ def exact_bins(values: np.ndarray, groups, hi: np.ndarray, lo: np.ndarray, offse
     return _lib.exact_bins(v.size, v, g, hi, lo, hi.size // span, offset, span)
 
 
-def gscreen(rows: np.ndarray, gidx: np.ndarray, rtol: float) -> np.ndarray:
+def gscreen(rows: np.ndarray, gidx: np.ndarray, rtol: float,
+            constant: np.ndarray | None = None) -> np.ndarray:
     """Per event: 1 g not finite; otherwise 2 if a derivative is not finite,
     plus 4 if g is degenerate (smallest |eigenvalue| ≤ rtol × largest) or 8 if
-    its signature is not Lorentzian; 0 when all is well."""
+    its signature is not Lorentzian; 0 when all is well. ``constant`` as for
+    :func:`curvature`: rows the kernel fills with one number are finite."""
     n = rows.shape[1]
     flags = np.empty(n)
-    _lib.gscreen(n, _f(rows, (150, n)), _i(gidx.ravel()), float(rtol), flags)
+    _lib.gscreen(n, _f(rows, (150, n)), _i(gidx.ravel()), float(rtol), flags,
+                 _constant(constant))
     return flags.astype(np.int64)
 
 

@@ -75,9 +75,25 @@ class ScalarKernel:
         return out
 
 
+_CONSTANT_ROW = re.compile(r"^ +out\[(\d+)\] = (-?\d+(?:\.\d*)?(?:e-?\d+)?)$", re.M)
+
+
 @dataclass(frozen=True)
 class MetricKernel(ScalarKernel):
     """The raw kernel of one metric: g, ∂g and ∂∂g (150 rows)."""
+
+    @property
+    def constant_rows(self) -> np.ndarray:
+        """(150,) float: the value of each row the kernel fills with one number
+        at every event (an entry or derivative that is identically constant,
+        such as ∂_t g of a static metric), NaN for the others."""
+        rows = self.__dict__.get("_constant_rows")
+        if rows is None:
+            rows = np.full(self.n_out, np.nan)
+            for k, v in _CONSTANT_ROW.findall(self.source):
+                rows[int(k)] = float(v)
+            object.__setattr__(self, "_constant_rows", rows)
+        return rows
 
 
 def kernel_from_source(source: str, n_out: int, cls=ScalarKernel) -> ScalarKernel:

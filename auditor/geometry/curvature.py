@@ -201,18 +201,21 @@ _NATIVE_TABLES = {"gidx": GIDX.ravel(), "g1": _G1.ravel(), "g2": _G2.ravel(), "g
                   "pidx": _PIDX.ravel(), "bi": _BI, "bj": _BJ, "r21": R21.ravel()}
 
 
-def curvature_from_rows(rows: np.ndarray, extra_abs: np.ndarray | None = None) -> Curvature:
+def curvature_from_rows(rows: np.ndarray, extra_abs: np.ndarray | None = None,
+                        constant: np.ndarray | None = None) -> Curvature:
     """Assemble Γ, Riemann, Ricci and Einstein from kernel rows (150,N).
 
     ``extra_abs`` adds an absolute uncertainty of the Riemann components per
     point (used where derivatives were obtained as limits). The compiled loop
     of :mod:`auditor.native` does the same work event by event where it is
-    built; :func:`curvature_from_rows_numpy` is the reference.
+    built; :func:`curvature_from_rows_numpy` is the reference. ``constant``
+    (150,), NaN except for rows that hold that one value at every event, spares
+    the compiled loop reading those rows (the results are the same).
     """
     n = rows.shape[1]
     if native.available():
         extra = np.zeros(n) if extra_abs is None else np.asarray(extra_abs, dtype=float)
-        o = native.curvature(rows, extra, _NATIVE_TABLES)
+        o = native.curvature(rows, extra, _NATIVE_TABLES, constant)
         return Curvature(rows, o["g"], o["ginv"], o["up"], o["r21"], o["scale21"], o["ricci"],
                          o["rscalar"], o["einstein"])
     return curvature_from_rows_numpy(rows, extra_abs)

@@ -188,7 +188,9 @@ class Geometry:
         limit = np.zeros(n, dtype=bool)
         extra_abs = np.zeros(n)
 
-        flags = native.gscreen(raw, GIDX, _DEGENERATE_RTOL) if native.available() else None
+        constant = getattr(self.kernel, "constant_rows", None)
+        flags = native.gscreen(raw, GIDX, _DEGENERATE_RTOL, constant) \
+            if native.available() else None
         if flags is not None:
             g_finite = (flags != 1) & np.isfinite(x).all(axis=1)
             d_bad = g_finite & ((flags & 2) != 0)
@@ -202,6 +204,8 @@ class Geometry:
             good = idx[ok]
             raw[10:, good] = est[10:, ok]   # g itself is finite: keep it exact
             extra_abs[good] = err[ok]
+            if good.size:
+                constant = None             # limit estimates need not keep a row's constant
             limit[good] = True
             reason[idx[~ok]] = _CODE["singular"]
 
@@ -231,14 +235,15 @@ class Geometry:
         ok = reason == 0
         curv = None
         if ok.any():
-            curv = curvature_from_rows(_columns(raw, ok), extra_abs[ok])
+            curv = curvature_from_rows(_columns(raw, ok), extra_abs[ok], constant)
             bad = ~(np.isfinite(curv.r21).all(axis=0) & np.isfinite(curv.scale)
                     & np.isfinite(curv.einstein).reshape(len(curv), -1).all(axis=1))
             if bad.any():  # overflow in assembly: treat as singular
                 okidx = np.flatnonzero(ok)
                 reason[okidx[bad]] = _CODE["singular"]
                 ok = reason == 0
-                curv = curvature_from_rows(_columns(raw, ok), extra_abs[ok]) if ok.any() else None
+                curv = curvature_from_rows(_columns(raw, ok), extra_abs[ok], constant) \
+                    if ok.any() else None
         return PointBatch(x=x, reason=reason, limit=limit & ok, curvature=curv)
 
     def _limit(self, x: np.ndarray, p: np.ndarray):

@@ -353,3 +353,24 @@ def test_exact_sum_bins_equal_the_numpy_binning(rng, monkeypatch):
         native.exact_bins(np.ones(2), np.array([0, 1]), hi, lo, 1100, 2200)
     with pytest.raises(ValueError, match="non-finite"):
         native.exact_bins(np.array([1.0, np.nan]), None, hi, lo, 1100, 2200)
+
+
+@pytest.mark.parametrize("name", ["tanh_wall_bubble.toml", "kerr_boyer_lindquist.toml"])
+def test_constant_rows_are_not_read_and_change_nothing(geometry_cache, name):
+    """Rows the kernel fills with one number (its generated source says so)
+    hold that number at every event; the compiled loops given them skip
+    reading them and return the same bits."""
+    from tests.conftest import SAMPLES_DIR
+    from auditor.geometry.layout import GIDX
+    geo = geometry_cache.path(SAMPLES_DIR / name)
+    constant = geo.kernel.constant_rows
+    fixed = np.flatnonzero(~np.isnan(constant))
+    assert 0 < fixed.size < 150          # both metrics have derivatives that vanish identically
+    rows = _raw_rows(geometry_cache, name)
+    assert np.array_equal(rows[fixed], np.broadcast_to(constant[fixed, None], rows[fixed].shape))
+    a, b = curvature_from_rows(rows), curvature_from_rows(rows, constant=constant)
+    for key in ("g", "ginv", "christoffel10", "r21", "scale21", "ricci", "ricci_scalar",
+                "einstein"):
+        assert np.array_equal(getattr(a, key), getattr(b, key)), key
+    assert np.array_equal(native.gscreen(rows, GIDX, 1e-12),
+                          native.gscreen(rows, GIDX, 1e-12, constant))
