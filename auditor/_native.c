@@ -578,6 +578,7 @@ static PyObject *py_margins(PyObject *self, PyObject *args)
             const double *Te = T + 16 * e;
             double scale = 0.0;
             for (int i = 0; i < 16; i++) if (fabs(Te[i]) > scale) scale = fabs(Te[i]);
+            double tmax = scale;
             if (!(scale > 0)) scale = 1.0;
             double rho = Te[0] / scale, b[3], A[9], lam[3], Q[9], beta[3], beta2[3], d[3];
             for (int i = 0; i < 3; i++) {
@@ -618,7 +619,7 @@ static PyObject *py_margins(PyObject *self, PyObject *args)
             o[5] = vW; o[6] = w[0]; o[7] = w[1]; o[8] = w[2];
             o[9] = vS; o[10] = ws[0]; o[11] = ws[1]; o[12] = ws[2];
             o[13] = need; o[14] = t; o[15] = lam[0]; o[16] = lam[1]; o[17] = lam[2];
-            o[18] = hard; o[19] = 0.0;
+            o[18] = hard; o[19] = tmax;
             memcpy(Qo + 9 * e, Q, sizeof Q);
         }
     }
@@ -1278,6 +1279,38 @@ fail:
     return NULL;
 }
 
+/* observers(n, k, E (N,16), V (N,k,3), out (N,k,4)): the coordinate components
+ * of n + v for k frame vectors v per event (pointwise._to_coordinates):
+ * out[e,j,mu] = (v0 E[e,1,mu] + v1 E[e,2,mu] + v2 E[e,3,mu]) + E[e,0,mu]. */
+WIDE static PyObject *py_observers(PyObject *self, PyObject *args)
+{
+    PyObject *oE, *oV, *oO;
+    Py_ssize_t n, k;
+    Buffers bufs = {.n = 0};
+    if (!PyArg_ParseTuple(args, "nnOOO", &n, &k, &oE, &oV, &oO))
+        return NULL;
+    if (n < 0 || k < 0) { PyErr_SetString(PyExc_ValueError, "n, k < 0"); return NULL; }
+    GETD(E, oE, 16 * n, 0);
+    GETD(V, oV, 3 * k * n, 0);
+    GETD(out, oO, 4 * k * n, 1);
+    Py_BEGIN_ALLOW_THREADS
+    for (Py_ssize_t e = 0; e < n; e++) {
+        const double *Ee = E + 16 * e;
+        for (Py_ssize_t j = 0; j < k; j++) {
+            const double *v = V + 3 * (k * e + j);
+            double *o = out + 4 * (k * e + j);
+            for (int mu = 0; mu < 4; mu++)
+                o[mu] = (v[0] * Ee[4 + mu] + v[1] * Ee[8 + mu] + v[2] * Ee[12 + mu]) + Ee[mu];
+        }
+    }
+    Py_END_ALLOW_THREADS
+    release(&bufs);
+    Py_RETURN_NONE;
+fail:
+    release(&bufs);
+    return NULL;
+}
+
 /* ------------------------------------------------------------ Hawking-Ellis screen */
 /* Eigenvalues of a real 4x4 matrix: Householder reduction to Hessenberg form,
  * then the Francis double-shift QR iteration in real arithmetic, deflating
@@ -1871,6 +1904,7 @@ static PyMethodDef methods[] = {
     {"gscreen", py_gscreen, METH_VARARGS, "Finiteness and signature of g, event by event."},
     {"eulerian", py_eulerian, METH_VARARGS, "Eulerian tetrads, event by event."},
     {"frame", py_frame, METH_VARARGS, "Frame stress, round-off scale and tides, event by event."},
+    {"observers", py_observers, METH_VARARGS, "Frame vectors n + v in coordinates, event by event."},
     {"eigvals4", py_eigvals4, METH_VARARGS, "Eigenvalues of real 4x4 matrices (for the tests)."},
     {"exact_bins", py_exact_bins, METH_VARARGS, "Bin sums of an exact summation."},
     {NULL, NULL, 0, NULL},

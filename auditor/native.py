@@ -22,7 +22,8 @@ import os
 import numpy as np
 
 __all__ = ["available", "curvature", "dec", "eigvals4", "eulerian", "exact_bins", "frame",
-           "gscreen", "he_screen", "label", "margins", "sampled", "MAX_DEC_STARTS"]
+           "gscreen", "he_screen", "label", "margins", "observers", "sampled",
+           "MAX_DEC_STARTS"]
 
 #: Most scan directions kept per event by the compiled DEC search (its fixed
 #: table holds 64 starts, seven of them special).
@@ -83,7 +84,8 @@ def margins(T: np.ndarray, settled: np.ndarray):
 
     Returns (out (N, 20), Q (N, 3, 3)); columns of ``out``: scale, NEC value,
     s (3), WEC value, w (3), SEC value, w (3), DEC search needed, secular root
-    t, eigenvalues λ (3), hard case, unused. Values are in units of T / scale.
+    t, eigenvalues λ (3), hard case, max |T_âb̂|. Values are in units of T / scale
+    (scale = max |T_âb̂|, or 1 where T = 0).
     """
     n = T.shape[0]
     T = _f(T, (n, 4, 4))
@@ -128,6 +130,15 @@ def frame(E: np.ndarray, einstein: np.ndarray, r21: np.ndarray, scale21: np.ndar
                _f(scale21, (21, n)), _i(tables["r21"]), _i(tables["bi"]), _i(tables["bj"]),
                out["T"], out["scale"], out["tidal"], out["eigenvalues"], out["vectors"],
                (2 if vectors else 1) if tidal else 0)
+    return out
+
+
+def observers(E: np.ndarray, V: np.ndarray) -> np.ndarray:
+    """Coordinate components (N, K, 4) of n + v for K frame vectors v (N, K, 3)
+    per event, in the tetrads E (N, 4, 4) (:func:`auditor.pointwise._to_coordinates`)."""
+    n, k = V.shape[0], V.shape[1]
+    out = np.empty((n, k, 4))
+    _lib.observers(n, k, _f(E, (n, 4, 4)), _f(V, (n, k, 3)), out)
     return out
 
 

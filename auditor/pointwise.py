@@ -77,6 +77,8 @@ def _to_coordinates(E: np.ndarray, spatial: np.ndarray) -> np.ndarray:
     v (M,3), (M,K,4) for K vectors per event (M,K,3)."""
     if spatial.ndim == 2:
         return _to_coordinates(E, spatial[:, None, :])[:, 0]
+    if native.available():
+        return native.observers(E, spatial)
     out = np.matmul(spatial, E[:, 1:, :])      # Σ_i v^i e_i, event by event
     out += E[:, None, 0, :]
     return out
@@ -124,8 +126,7 @@ def analyse(batch: PointBatch, crew_frame: str = "eulerian", *,
     # curvature is not); checked once here instead of by each routine below.
     if not (np.isfinite(T).all() and np.isfinite(t_tol).all()):
         raise ValueError("the frame stress of an auditable event is not finite")
-    settled = np.abs(T).max(axis=(1, 2)) <= t_tol
-    r = _margins_of_checked(T, settled)
+    r = _margins_of_checked(T, settle_tol=t_tol)
     m, s1, s2 = r["DEC"]
     # the five worst observers, frame to coordinates in one product
     k = _to_coordinates(E, np.stack([r["NEC"][1], r["WEC"][1], r["SEC"][1], s1, s2], axis=1))

@@ -670,12 +670,17 @@ def margins_with_observers(T, *, settled=None, **dec_options):
     return _margins_of_checked(T, settled, n_dirs, n_starts)
 
 
-def _margins_of_checked(T, settled=None, n_dirs=DEC_DIRECTIONS, n_starts=DEC_STARTS):
+def _margins_of_checked(T, settled=None, n_dirs=DEC_DIRECTIONS, n_starts=DEC_STARTS,
+                        settle_tol=None):
     """:func:`margins_with_observers` of a T already known to be finite and
     symmetric (float64 (N, 4, 4)): no checks, no copies. For
-    :func:`auditor.pointwise.analyse`, whose frame stress is both."""
+    :func:`auditor.pointwise.analyse`, whose frame stress is both.
+    ``settle_tol`` (N,), instead of ``settled``: the events where every |T_âb̂|
+    is at most it are settled (the compiled loop finds max |T_âb̂| anyway)."""
     if native.available() and n_starts <= native.MAX_DEC_STARTS:
-        return _margins_native(T, settled, n_dirs, n_starts)
+        return _margins_native(T, settled, n_dirs, n_starts, settle_tol)
+    if settle_tol is not None:
+        settled = np.abs(T).max(axis=(1, 2)) <= settle_tol
     rho, b, A, scale = _scaled(T)
     sphere = _sphere_min(rho, b, A)
     valN, sN, lam, Q, beta, t = sphere
@@ -692,12 +697,14 @@ def _margins_of_checked(T, settled=None, n_dirs=DEC_DIRECTIONS, n_starts=DEC_STA
     return out
 
 
-def _margins_native(T, settled, n_dirs, n_starts):
+def _margins_native(T, settled, n_dirs, n_starts, settle_tol=None):
     """:func:`margins_with_observers` through the compiled loops (auditor.native):
     the same steps, event by event."""
     n = T.shape[0]
     skip = np.zeros(n) if settled is None else np.asarray(settled, dtype=float)
     o, Q = native.margins(T, skip)
+    if settle_tol is not None:                    # column 19: max |T_âb̂|
+        o[:, 13] *= ~(o[:, 19] <= settle_tol)
     scale = o[:, 0]
     out = {"NEC": (o[:, 1] * scale, o[:, 2:5]), "WEC": (o[:, 5] * scale, o[:, 6:9]),
            "SEC": (o[:, 9] * scale, o[:, 10:13])}

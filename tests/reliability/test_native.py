@@ -374,3 +374,36 @@ def test_constant_rows_are_not_read_and_change_nothing(geometry_cache, name):
         assert np.array_equal(getattr(a, key), getattr(b, key)), key
     assert np.array_equal(native.gscreen(rows, GIDX, 1e-12),
                           native.gscreen(rows, GIDX, 1e-12, constant))
+
+
+def test_observers_match_numpy(rng, monkeypatch):
+    """Frame vectors n + v in coordinates: the compiled loop and the batched
+    matrix product agree to round-off (one or several vectors per event)."""
+    from auditor.pointwise import _to_coordinates
+    E = rng.normal(size=(500, 4, 4))
+    V = rng.normal(size=(500, 5, 3))
+    a, a1 = _to_coordinates(E, V), _to_coordinates(E, V[:, 2])
+    monkeypatch.setenv("AUDITOR_NO_NATIVE", "1")
+    b, b1 = _to_coordinates(E, V), _to_coordinates(E, V[:, 2])
+    scale = (np.abs(V).sum(axis=2, keepdims=True) + 1) * np.abs(E).max(axis=(1, 2))[:, None, None]
+    assert np.all(np.abs(a - b) <= 4 * EPS * scale)
+    assert np.array_equal(a1, a[:, 2])
+    assert np.allclose(a1, b1, rtol=0, atol=4 * EPS * scale[:, 2].max())
+
+
+@pytest.mark.parametrize("compiled", [True, False])
+def test_settle_tolerance_equals_the_settled_mask(rng, monkeypatch, compiled):
+    """Settling by a per-event tolerance (the compiled loop's max |T|) gives
+    the same margins and observers as the mask max |T| ≤ tolerance."""
+    if not compiled:
+        monkeypatch.setenv("AUDITOR_NO_NATIVE", "1")
+    T = _tensors(rng, 400)
+    T[::3] *= 1e-13                              # some events within their round-off
+    tol = np.full(len(T), 1e-12)
+    mask = np.abs(T).max(axis=(1, 2)) <= tol
+    assert 0 < mask.sum() < len(T)
+    a = M._margins_of_checked(T, settle_tol=tol)
+    b = M._margins_of_checked(T, settled=mask)
+    for c in ("NEC", "WEC", "SEC", "DEC"):
+        for k in range(len(a[c])):
+            assert np.array_equal(a[c][k], b[c][k]), (c, k)
