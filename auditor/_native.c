@@ -486,7 +486,7 @@ static double secular(const double *beta2, const double *d, int *hard_out)
             }
         }
         double h = 1.0 / sqrt(phi) - 1.0;
-        double hp = dsum / pow(phi, 1.5);
+        double hp = dsum / (phi * sqrt(phi));      /* h' (only steers the step) */
         if (!isfinite(h)) h = INFINITY;
         if (h < 0) lo = t;
         if (h > 0) hi = t;

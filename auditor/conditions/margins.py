@@ -233,7 +233,7 @@ def _secular_t(beta2: np.ndarray, d: np.ndarray):
         dsum = np.where(pos, beta2 / dsafe**3, 0.0).sum(axis=1)
         with np.errstate(divide="ignore", invalid="ignore"):
             h = 1.0 / np.sqrt(phi) - 1.0          # increasing in t, zero at the root
-            hp = dsum / phi**1.5
+            hp = dsum / (phi * np.sqrt(phi))     # h' (only steers the step)
         h = np.where(np.isfinite(h), h, np.inf)
         lo = np.where(h < 0, t, lo)
         hi = np.where(h > 0, t, hi)
