@@ -18,6 +18,7 @@ Usable from a notebook::
 
 from __future__ import annotations
 
+import itertools
 import os
 import signal
 import sys
@@ -464,6 +465,52 @@ class _Forked:
 
 _STOP_SIGNALS = {signal.SIGINT, signal.SIGTERM}
 
+#: Chunks per worker process submitted ahead of the one being reduced (--jobs).
+CHUNKS_AHEAD = 2
+
+
+class WorkerPool:
+    """Forked worker processes for ``--jobs`` (a ``ProcessPoolExecutor``).
+
+    The workers leave Ctrl-C to this process (the terminal sends it to the
+    whole job; this process answers it) and end at once on SIGTERM: the handler
+    the command line installs would raise inside the pool's machinery and leave
+    this process waiting for a result that never comes. Leaving the block by an
+    exception cancels the work not yet started instead of waiting for it.
+    Submit through :func:`pool_submit`, which holds the stop signals while the
+    first submission forks the workers.
+    """
+
+    def __init__(self, jobs: int):
+        import multiprocessing as mp
+        from concurrent.futures import ProcessPoolExecutor
+        self.pool = ProcessPoolExecutor(max_workers=jobs, mp_context=mp.get_context("fork"),
+                                        initializer=_worker_signals)
+
+    def __enter__(self):
+        return self.pool
+
+    def __exit__(self, kind, value, tb):
+        self.pool.shutdown(wait=True, cancel_futures=kind is not None)
+        return False
+
+
+def pool_submit(pool, fn, *args):
+    """``pool.submit`` with Ctrl-C and SIGTERM held: a signal during a fork would
+    land in an at-fork callback (see :class:`_Forked`); the workers release them
+    once their own handlers are set (:func:`_worker_signals`)."""
+    held = signal.pthread_sigmask(signal.SIG_BLOCK, _STOP_SIGNALS)
+    try:
+        return pool.submit(fn, *args)
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, held)
+
+
+def _worker_signals():
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.pthread_sigmask(signal.SIG_UNBLOCK, _STOP_SIGNALS)
+
 
 def _forked_child(send, fn, args):
     # The parent answers Ctrl-C (the terminal sends it to both) and ends this
@@ -893,14 +940,24 @@ def _chunks(metric, geometry, grid, bounds, checked, jobs, dask):
             client.close()
         return
     if jobs > 1 and len(bounds) > 1:
-        import multiprocessing as mp
-        from concurrent.futures import ProcessPoolExecutor
+        from collections import deque
         _STATE.update(metric=metric, geometry=geometry, grid=grid)   # inherited by fork
-        with ProcessPoolExecutor(max_workers=jobs, mp_context=mp.get_context("fork")) as pool:
-            futs = [pool.submit(_chunk_in_worker, a, b, _check_mask(checked, a, b))
-                    for a, b in bounds]
-            for (a, b), fut in zip(bounds, futs):
-                yield (a, b), fut.result()
+        # At most CHUNKS_AHEAD chunks per worker are submitted ahead of the one
+        # being reduced: finished chunks wait in this process's memory, and on
+        # a huge grid all of them at once would not fit.
+        todo = iter(bounds)
+        with WorkerPool(jobs) as pool:
+            def submit(ab):
+                a, b = ab
+                return ab, pool_submit(pool, _chunk_in_worker, a, b, _check_mask(checked, a, b))
+            futs = deque(submit(ab) for ab in itertools.islice(todo, CHUNKS_AHEAD * jobs))
+            while futs:
+                ab, fut = futs.popleft()
+                part = fut.result()
+                nxt = next(todo, None)
+                if nxt is not None:
+                    futs.append(submit(nxt))
+                yield ab, part
         return
     for a, b in bounds:
         yield (a, b), chunk_fields(metric, geometry, grid, a, b, _check_mask(checked, a, b))

@@ -216,11 +216,10 @@ def sweep(metric, varies, *, points=None, overrides=None, jobs: int = 1, dask: s
         if dask:
             _run_dask(dask, args, todo, require, record)
         elif jobs > 1 and len(todo) > 1:
-            import multiprocessing as mp
-            from concurrent.futures import ProcessPoolExecutor, as_completed
-            ctx = mp.get_context("fork")
-            with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
-                futs = {pool.submit(_audit_combo, *args, c, require): i for i, c in todo}
+            from concurrent.futures import as_completed
+            from .audit import pool_submit, WorkerPool
+            with WorkerPool(jobs) as pool:
+                futs = {pool_submit(pool, _audit_combo, *args, c, require): i for i, c in todo}
                 for fut in as_completed(futs):
                     record(futs[fut], fut.result())
         else:

@@ -30,6 +30,45 @@ def test_jobs_give_identical_results(bubble, geometry_cache):
     assert _json(serial) == _json(parallel)
 
 
+def test_jobs_keep_few_chunks_in_flight(bubble, geometry_cache, monkeypatch):
+    """Finished chunks wait in the parent's memory: with --jobs, at most
+    CHUNKS_AHEAD per worker are submitted ahead of the one being reduced (a
+    synchronous stand-in for the pool counts them), and results are unchanged."""
+    from concurrent.futures import Future
+    import auditor.audit as A
+    count = {"now": 0, "peak": 0}
+
+    class CountingPool:
+        def __init__(self, jobs):
+            pass
+
+        def __enter__(self):
+            return self
+
+        def __exit__(self, *exc):
+            return False
+
+        def submit(self, fn, *args):
+            fut = Future()
+            fut.set_result(fn(*args))
+            count["now"] += 1
+            count["peak"] = max(count["peak"], count["now"])
+            done = fut.result
+
+            def result(timeout=None):
+                count["now"] -= 1
+                return done(timeout)
+            fut.result = result
+            return fut
+
+    geometry = geometry_cache.sample("tanh_wall_bubble")
+    serial = audit(bubble, geometry=geometry, crew=False, refine=False, chunk=100)
+    monkeypatch.setattr(A, "WorkerPool", CountingPool)
+    parallel = audit(bubble, geometry=geometry, crew=False, refine=False, chunk=100, jobs=3)
+    assert count["peak"] == A.CHUNKS_AHEAD * 3 and count["now"] == 0
+    assert _json(serial) == _json(parallel)
+
+
 def test_chunk_size_does_not_change_results(bubble, geometry_cache):
     geometry = geometry_cache.sample("tanh_wall_bubble")
     big = audit(bubble, geometry=geometry, crew=False, refine=False, chunk=4096)

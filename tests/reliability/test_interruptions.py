@@ -370,17 +370,21 @@ def _children(pid: int) -> list[int]:
 
 
 @pytest.mark.skipif(not Path("/proc/self/task").exists(), reason="needs Linux /proc")
+@pytest.mark.parametrize("jobs", ["1", "2"])
 @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM], ids=["Ctrl-C", "SIGTERM"])
-def test_a_signal_to_the_whole_job_leaves_one_line(sig, tmp_path):
-    """A terminal's Ctrl-C reaches every process of the job: the check and the
-    process that follows the crew worldline beside it. Only the documented line
-    is printed (the helper process must not print a traceback), and no output."""
+def test_a_signal_to_the_whole_job_leaves_one_line(sig, jobs, tmp_path):
+    """A terminal's Ctrl-C reaches every process of the job: the check, the
+    process that follows the crew worldline beside it and, with --jobs, the
+    worker processes. Only the documented line is printed (no helper may print
+    a traceback), and no output. Regression: workers that inherited the
+    command line's SIGTERM handler raised inside the pool's machinery, and the
+    check then waited for them forever."""
     path = Path(__file__).resolve().parents[2] / "sample_metrics" / "tanh_wall_bubble.toml"
     env = child_env(tmp_path / "cache")
     subprocess.run(auditor_cmd("check", path, "--points", "9", "--quiet"), env=env,
                    capture_output=True, timeout=300)            # the caches, once
     proc = subprocess.Popen(auditor_cmd("check", path, "--points", "81", "--quiet", "--json",
-                                        "out.json"),
+                                        "out.json", "--jobs", jobs),
                             cwd=tmp_path, env=env, stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True, stdin=subprocess.DEVNULL,
                             start_new_session=True, preexec_fn=_sigint_at_default)
