@@ -217,7 +217,7 @@ def sweep(metric, varies, *, points=None, overrides=None, jobs: int = 1, dask: s
             _run_dask(dask, args, todo, require, record)
         elif jobs > 1 and len(todo) > 1:
             from concurrent.futures import as_completed
-            from .audit import pool_submit, WorkerPool
+            from .audit import WorkerPool, pool_submit
             with WorkerPool(jobs) as pool:
                 futs = {pool_submit(pool, _audit_combo, *args, c, require): i for i, c in todo}
                 for fut in as_completed(futs):
