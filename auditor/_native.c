@@ -199,6 +199,15 @@ static void jacobi(double *a, int n, double *w, double *v)
  * (a_pq = 0) leaves its entries as they were (selected, not multiplied by
  * c = 1, s = 0, which could flip the sign of a zero). v may be NULL. */
 enum { JB = 16 };
+/* (x, y) <- (c x - s y, s x + c y) in the lanes where rot is set (c, sn, rot:
+ * arrays of the enclosing scope) */
+#define ROTATE_LANES(X, Y)                                                      \
+    for (int j = 0; j < JB; j++) {                                              \
+        double xo = (X)[j], yo = (Y)[j];                                        \
+        double xn = c[j] * xo - sn[j] * yo, yn = sn[j] * xo + c[j] * yo;         \
+        (X)[j] = rot[j] != 0.0 ? xn : xo;                                       \
+        (Y)[j] = rot[j] != 0.0 ? yn : yo;                                       \
+    }
 WIDE NOTRAP static void jacobi3_block(double a[9][JB], double w[3][JB], double v[9][JB])
 {
     double live[JB];                 /* 1.0 while the matrix is being rotated, else 0.0 */
@@ -235,31 +244,16 @@ WIDE NOTRAP static void jacobi3_block(double a[9][JB], double w[3][JB], double v
                     sn[j] = t * c[j];
                 }
                 for (int k = 0; k < 3; k++)                  /* A <- A J */
-                    for (int j = 0; j < JB; j++) {
-                        double akp = a[3 * k + p][j], akq = a[3 * k + q][j];
-                        double np_ = c[j] * akp - sn[j] * akq, nq = sn[j] * akp + c[j] * akq;
-                        a[3 * k + p][j] = rot[j] != 0.0 ? np_ : akp;
-                        a[3 * k + q][j] = rot[j] != 0.0 ? nq : akq;
-                    }
+                    ROTATE_LANES(a[3 * k + p], a[3 * k + q]);
                 for (int k = 0; k < 3; k++)                  /* A <- J^T A */
-                    for (int j = 0; j < JB; j++) {
-                        double apk = a[3 * p + k][j], aqk = a[3 * q + k][j];
-                        double np_ = c[j] * apk - sn[j] * aqk, nq = sn[j] * apk + c[j] * aqk;
-                        a[3 * p + k][j] = rot[j] != 0.0 ? np_ : apk;
-                        a[3 * q + k][j] = rot[j] != 0.0 ? nq : aqk;
-                    }
+                    ROTATE_LANES(a[3 * p + k], a[3 * q + k]);
                 for (int j = 0; j < JB; j++) {
                     a[3 * p + q][j] = rot[j] != 0.0 ? 0.0 : a[3 * p + q][j];
                     a[3 * q + p][j] = rot[j] != 0.0 ? 0.0 : a[3 * q + p][j];
                 }
                 if (v)
                     for (int k = 0; k < 3; k++)              /* V <- V J */
-                        for (int j = 0; j < JB; j++) {
-                            double vkp = v[3 * k + p][j], vkq = v[3 * k + q][j];
-                            double np_ = c[j] * vkp - sn[j] * vkq, nq = sn[j] * vkp + c[j] * vkq;
-                            v[3 * k + p][j] = rot[j] != 0.0 ? np_ : vkp;
-                            v[3 * k + q][j] = rot[j] != 0.0 ? nq : vkq;
-                        }
+                        ROTATE_LANES(v[3 * k + p], v[3 * k + q]);
             }
     }
     for (int j = 0; j < JB; j++) {
