@@ -555,13 +555,14 @@ static PyObject *py_margins(PyObject *self, PyObject *args)
     Py_BEGIN_ALLOW_THREADS
     /* Blocks of JB events: the eigen-decompositions of A together
      * (jacobi3_block), the rest event by event. */
-    double Ab[9][JB], lamb[3][JB], Qb[9][JB];
+    double Ab[9][JB], lamb[3][JB], Qb[9][JB], tmaxb[JB];
     for (Py_ssize_t e0 = 0; e0 < n; e0 += JB) {
         Py_ssize_t nb = n - e0 < JB ? n - e0 : JB;
         for (int j = 0; j < JB; j++) {
             const double *Te = T + 16 * (e0 + (j < nb ? j : 0));
             double scale = 0.0;
             for (int i = 0; i < 16; i++) if (fabs(Te[i]) > scale) scale = fabs(Te[i]);
+            tmaxb[j] = scale;
             if (!(scale > 0)) scale = 1.0;
             for (int i = 0; i < 3; i++)
                 for (int k = 0; k < 3; k++) Ab[3 * i + k][j] = Te[4 * (i + 1) + k + 1] / scale;
@@ -570,10 +571,7 @@ static PyObject *py_margins(PyObject *self, PyObject *args)
         for (Py_ssize_t j = 0; j < nb; j++) {
             Py_ssize_t e = e0 + j;
             const double *Te = T + 16 * e;
-            double scale = 0.0;
-            for (int i = 0; i < 16; i++) if (fabs(Te[i]) > scale) scale = fabs(Te[i]);
-            double tmax = scale;
-            if (!(scale > 0)) scale = 1.0;
+            double tmax = tmaxb[j], scale = tmax > 0 ? tmax : 1.0;
             double rho = Te[0] / scale, b[3], A[9], lam[3], Q[9], beta[3], beta2[3], d[3];
             for (int i = 0; i < 3; i++) {
                 b[i] = Te[1 + i] / scale;
