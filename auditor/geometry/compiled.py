@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Callable, Sequence
 
 import numpy as np
@@ -82,17 +83,14 @@ _CONSTANT_ROW = re.compile(r"^ +out\[(\d+)\] = (-?\d+(?:\.\d*)?(?:e-?\d+)?)$", r
 class MetricKernel(ScalarKernel):
     """The raw kernel of one metric: g, ∂g and ∂∂g (150 rows)."""
 
-    @property
+    @cached_property
     def constant_rows(self) -> np.ndarray:
         """(150,) float: the value of each row the kernel fills with one number
         at every event (an entry or derivative that is identically constant,
         such as ∂_t g of a static metric), NaN for the others."""
-        rows = self.__dict__.get("_constant_rows")
-        if rows is None:
-            rows = np.full(self.n_out, np.nan)
-            for k, v in _CONSTANT_ROW.findall(self.source):
-                rows[int(k)] = float(v)
-            object.__setattr__(self, "_constant_rows", rows)
+        rows = np.full(self.n_out, np.nan)
+        for k, v in _CONSTANT_ROW.findall(self.source):
+            rows[int(k)] = float(v)
         return rows
 
 
